@@ -1,0 +1,37 @@
+"""dnpqc: NV-centre dynamic nuclear polarization compiled into quantum-circuit programs.
+
+The public API, for notebooks and scripts:
+
+>>> from dnpqc import demo_scenario, hamiltonian, compile_program, simulate
+>>> sc = demo_scenario()
+>>> h = hamiltonian(sc.system, rabi_hz=500e3, detuning_hz=0.0)  # SparsePauliOp, Hz
+>>> program = compile_program(sc)             # program.circuit: QuantumCircuit
+>>> result = simulate(sc, "exact")          # .polarization[point, cycle, nucleus]
+"""
+
+from .engines import simulate
+from .engines.circuit import Program, compile_program
+from .errors import ScenarioError
+from .job import RunOutcome, run_scenario
+from .model import Coupling, Nucleus, SpinSystem, hamiltonian
+from .results import SweepResult
+from .scenario import Scenario, demo_scenario, load_scenario, parse_scenario, scenario_from_dict
+
+__all__ = [
+    "Coupling",
+    "Nucleus",
+    "Program",
+    "RunOutcome",
+    "Scenario",
+    "ScenarioError",
+    "SpinSystem",
+    "SweepResult",
+    "compile_program",
+    "demo_scenario",
+    "hamiltonian",
+    "load_scenario",
+    "parse_scenario",
+    "run_scenario",
+    "scenario_from_dict",
+    "simulate",
+]

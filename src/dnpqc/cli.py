@@ -1,0 +1,127 @@
+"""Command line: `dnpqc run`, `dnpqc sweep`. User errors: one line on stderr, exit code 2."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from tqdm import tqdm
+
+from . import report
+from .engines import ENGINES, simulate
+from .errors import ScenarioError
+from .job import RunOutcome, run_scenario
+from .scenario import Scenario, demo_scenario, load_scenario
+
+EXIT_USAGE = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise ScenarioError(message)
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="dnpqc", description="NV-centre DNP as quantum-circuit programs")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    run = sub.add_parser(
+        "run", help="simulate a scenario with the exact and trotter engines, write a report"
+    )
+    run.add_argument("scenario", nargs="?", help="scenario TOML file (default: the bundled demo)")
+    run.add_argument("--out", default=None, help="output folder (default: results/<scenario name>)")
+    run.add_argument("--engines", default="exact,trotter", help="comma-separated engines to run")
+    sweep = sub.add_parser("sweep", help="one engine over the sweep, JSON out")
+    sweep.add_argument("scenario", help="scenario TOML file")
+    sweep.add_argument("--engine", default="exact", choices=tuple(ENGINES))
+    sweep.add_argument("--json", default=None, help="write the JSON here (default: stdout)")
+    return parser
+
+
+def _scenario(path: str | None) -> Scenario:
+    return demo_scenario() if path is None else load_scenario(path)
+
+
+def _progress(total: int, desc: str) -> tqdm:
+    return tqdm(total=total, desc=desc, unit="pt", disable=not sys.stderr.isatty(), leave=False)
+
+
+def _engines(text: str) -> tuple[str, ...]:
+    names = tuple(e.strip() for e in text.split(",") if e.strip())
+    bad = [e for e in names if e not in ENGINES]
+    if bad or not names:
+        raise ScenarioError(
+            f"`--engines` must list engines from {', '.join(ENGINES)}; got {text!r}"
+        )
+    return names
+
+
+def _cmd_run(args) -> int:
+    scenario = _scenario(args.scenario)
+    engines = _engines(args.engines)
+    out = Path(args.out) if args.out else Path("results") / scenario.name
+    bars = {e: _progress(len(scenario.sweep.values), e) for e in engines}
+    try:
+        outcome = run_scenario(scenario, engines, on_point=lambda e: bars[e].update())
+    finally:
+        for bar in bars.values():
+            bar.close()
+    write_run(outcome, out)
+    for line in outcome.summary_lines():
+        print(line)
+    print(f"report: {out / 'report.json'} (plots and sweep.csv beside it)")
+    return 0
+
+
+def write_run(outcome: RunOutcome, out: Path) -> None:
+    """All files of a run: figures are drawn first, then every file is written atomically."""
+    ref = outcome.reference
+    ana = outcome.analysis(ref.engine)
+    figures = {
+        "spectrum.png": report.spectrum_figure(ref, outcome.resonances()),
+        "buildup.png": report.buildup_figure(
+            ref, ana["best_common"]["index"], ana["saturation"]["per_nucleus"]
+        ),
+    }
+    if len(outcome.results) > 1:
+        figures["engines.png"] = report.comparison_figure(list(outcome.results.values()))
+    payload = outcome.to_json()
+    csv_text = report.sweep_csv(list(outcome.results.values()))
+    for name, fig in figures.items():
+        report.save_figure(out / name, fig)
+    report.write_text(out / "sweep.csv", csv_text)
+    report.write_json(out / "report.json", payload)
+
+
+def _cmd_sweep(args) -> int:
+    scenario = load_scenario(args.scenario)
+    bar = _progress(len(scenario.sweep.values), args.engine)
+    try:
+        result = simulate(scenario, args.engine, on_point=bar.update)
+    finally:
+        bar.close()
+    data = result.to_dict()
+    if args.json:
+        report.write_json(Path(args.json), data)
+    else:
+        json.dump(data, sys.stdout)
+        sys.stdout.write("\n")
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point; returns the exit code (0 ok, 2 bad input)."""
+    try:
+        args = _parser().parse_args(argv)
+        handler = {"run": _cmd_run, "sweep": _cmd_sweep}[args.command]
+        return handler(args)
+    except ScenarioError as exc:
+        print(f"dnpqc: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,25 @@
+"""Simulation engines: `exact` (dense reference) and `trotter` (compiled circuit on Aer)."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+from ..errors import ScenarioError
+from ..results import SweepResult
+from ..scenario import Scenario
+from .circuit import simulate_trotter
+from .exact import simulate_exact
+
+ENGINES: dict[str, Callable[..., SweepResult]] = {
+    "exact": simulate_exact,
+    "trotter": simulate_trotter,
+}
+
+
+def simulate(
+    scenario: Scenario, engine: str = "exact", *, on_point: Callable[[], None] | None = None
+) -> SweepResult:
+    """Run `engine` over the scenario's sweep; `on_point` is called after each point."""
+    if engine not in ENGINES:
+        raise ScenarioError(f"`engine` must be one of {', '.join(ENGINES)}; got {engine!r}")
+    return ENGINES[engine](scenario, on_point=on_point)

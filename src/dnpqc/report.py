@@ -1,0 +1,184 @@
+"""Reports: the JSON/CSV files, the plots and the terminal summary of a run. I/O lives here.
+
+Every file is written atomically (a temporary file in the same folder, then `os.replace`), so an
+interrupted run leaves either the old file or the new one, never half of one.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+
+from .results import SweepResult
+
+_UNITS = {"_hz": ("kHz", 1e-3), "_s": ("µs", 1e6)}
+
+
+def axis_unit(parameter: str) -> tuple[str, float]:
+    """Display unit and scale of a swept key: Hz shown in kHz, seconds in µs."""
+    for suffix, unit in _UNITS.items():
+        if parameter.endswith(suffix):
+            return unit
+    return "", 1.0
+
+
+def format_value(parameter: str, value: float) -> str:
+    unit, scale = axis_unit(parameter)
+    return f"{value * scale:.4g} {unit}".strip()
+
+
+def _write_atomic(path: Path, write: Callable[[io.IOBase], None], *, binary: bool = False) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
+            write(fh)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def write_text(path: Path, text: str) -> None:
+    """Write `text` to `path` atomically."""
+    _write_atomic(Path(path), lambda fh: fh.write(text))
+
+
+def write_json(path: Path, data: object) -> None:
+    write_text(path, json.dumps(data, indent=2) + "\n")
+
+
+def sweep_csv(results: list[SweepResult]) -> str:
+    """Long-format CSV: engine, swept value, cycle (1-based), nucleus, polarization."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(["engine", results[0].parameter, "cycle", "nucleus", "polarization"])
+    for res in results:
+        for i, value in enumerate(res.values):
+            for c in range(res.cycles):
+                for j, label in enumerate(res.nuclei):
+                    writer.writerow(
+                        [
+                            res.engine,
+                            repr(float(value)),
+                            c + 1,
+                            label,
+                            f"{res.polarization[i, c, j]:.12g}",
+                        ]
+                    )
+    return buf.getvalue()
+
+
+def _figure_writer(fig) -> Callable[[io.IOBase], None]:
+    def write(fh) -> None:
+        fig.savefig(fh, format="png", dpi=120)
+
+    return write
+
+
+def save_figure(path: Path, fig) -> None:
+    import matplotlib.pyplot as plt
+
+    try:
+        _write_atomic(Path(path), _figure_writer(fig), binary=True)
+    finally:
+        plt.close(fig)
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
+    """P_j vs the swept value, one panel per nucleus, one line per cycle, a-priori lines dashed."""
+    plt = _pyplot()
+    unit, scale = axis_unit(result.parameter)
+    n = len(result.nuclei)
+    fig, axes = plt.subplots(n, 1, figsize=(7, 1.9 * n + 0.8), sharex=True, squeeze=False)
+    colours = plt.cm.viridis(np.linspace(0.1, 0.9, result.cycles))
+    x = result.values * scale
+    for j, (ax, label) in enumerate(zip(axes[:, 0], result.nuclei, strict=True)):
+        for c in range(result.cycles):
+            ax.plot(
+                x,
+                result.polarization[:, c, j],
+                color=colours[c],
+                lw=1.2,
+                label=f"cycle {c + 1}" if j == 0 else None,
+            )
+        for k, v in enumerate(resonances.get(label, [])):
+            ax.axvline(
+                v * scale,
+                color="tab:red",
+                ls="--",
+                lw=0.9,
+                label="a-priori resonance" if j == 0 and k == 0 else None,
+            )
+        ax.set_ylabel(f"P({label})")
+        ax.axhline(0, color="0.7", lw=0.6)
+    axes[-1, 0].set_xlabel(f"{result.parameter} [{unit}]" if unit else result.parameter)
+    fig.legend(loc="upper right", fontsize=7, ncol=2)
+    fig.suptitle(f"Nuclear polarization vs {result.parameter} ({result.engine} engine)")
+    fig.tight_layout(rect=(0, 0, 0.82, 0.97))
+    return fig
+
+
+def buildup_figure(result: SweepResult, point: int, fits: dict[str, dict[str, float]]):
+    """|P_j| vs cycle at sweep point `point`, with the fitted saturation curves dotted."""
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(6, 4))
+    cycles = np.arange(1, result.cycles + 1)
+    fine = np.linspace(0, result.cycles, 200)
+    for j, label in enumerate(result.nuclei):
+        (line,) = ax.plot(cycles, np.abs(result.polarization[point, :, j]), "o-", label=label)
+        fit = fits[label]
+        ax.plot(
+            fine,
+            fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
+            ":",
+            color=line.get_color(),
+        )
+    ax.set_xlabel("cycle")
+    ax.set_ylabel("|P|")
+    ax.set_ylim(0, 1.05)
+    ax.set_title(
+        f"Build-up at {result.parameter} = {format_value(result.parameter, result.values[point])}"
+    )
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+def comparison_figure(results: list[SweepResult], cycle: int = -1):
+    """Final-cycle spectra of several engines: the first solid, the others dashed."""
+    plt = _pyplot()
+    unit, scale = axis_unit(results[0].parameter)
+    fig, ax = plt.subplots(figsize=(7, 4))
+    styles = ["-", "--", ":", "-."]
+    for r_i, res in enumerate(results):
+        for j, label in enumerate(res.nuclei):
+            ax.plot(
+                res.values * scale,
+                res.polarization[:, cycle, j],
+                styles[r_i % 4],
+                color=f"C{j}",
+                label=f"{label} ({res.engine})",
+            )
+    ax.set_xlabel(f"{results[0].parameter} [{unit}]" if unit else results[0].parameter)
+    ax.set_ylabel(f"P after cycle {results[0].cycles if cycle == -1 else cycle + 1}")
+    ax.legend(fontsize=7, ncol=2)
+    ax.set_title("Engines compared")
+    fig.tight_layout()
+    return fig

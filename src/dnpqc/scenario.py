@@ -1,0 +1,468 @@
+"""Scenario files (TOML) → a validated, frozen `Scenario`.
+
+Every key is checked: unknown keys, missing fields, wrong types and out-of-range values raise a
+`ScenarioError` whose one-line message names the key, the value and what is allowed.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import tomllib
+from dataclasses import dataclass, replace
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import ScenarioError
+from .lattice import dipolar_from_positions, hyperfine_from_position, random_cluster_nm
+from .model import Coupling, Nucleus, SpinSystem
+from .protocols import (
+    AXIS_PHASES_RAD,
+    NAMED_BLOCKS,
+    BlockPulse,
+    BlockWait,
+    CycleSchedule,
+    Protocol,
+    PulsedBlock,
+    SpinLock,
+    cycle_schedule,
+    shortest_window_s,
+)
+
+_MISSING = object()
+
+
+@dataclass(frozen=True)
+class Sweep:
+    """The swept drive quantity (a protocol field name) and its grid of values."""
+
+    parameter: str
+    values: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class TrotterSettings:
+    """Trotter steps per cycle (pulsed: per free window), order 1 or 2, steps per finite pulse."""
+
+    steps: int = 40
+    order: int = 2
+    pulse_steps: int = 2
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """Everything one run needs: the spins, the drive, the sweep, the cycles, the compiler."""
+
+    name: str
+    system: SpinSystem
+    protocol: Protocol
+    sweep: Sweep
+    cycles: int
+    trotter: TrotterSettings
+    digest: str = ""
+
+    def schedule(self) -> CycleSchedule:
+        """One cycle's segments with the swept quantity as the variable."""
+        return cycle_schedule(
+            self.protocol,
+            swept=self.sweep.parameter,
+            steps=self.trotter.steps,
+            pulse_steps=self.trotter.pulse_steps,
+        )
+
+
+class _Table:
+    """A TOML table being read: typed getters with range checks, and a check for unknown keys."""
+
+    def __init__(self, data: Any, path: str):
+        if not isinstance(data, dict):
+            raise ScenarioError(f"`{path}` must be a table, got {type(data).__name__}")
+        self.data = data
+        self.path = path
+        self.used: set[str] = set()
+
+    def key(self, name: str) -> str:
+        return f"{self.path}.{name}" if self.path else name
+
+    def has(self, name: str) -> bool:
+        return name in self.data
+
+    def _get(self, name: str, default: Any) -> Any:
+        self.used.add(name)
+        if name in self.data:
+            return self.data[name]
+        if default is _MISSING:
+            raise ScenarioError(f"missing key `{self.key(name)}`")
+        return default
+
+    def number(
+        self,
+        name: str,
+        default: Any = _MISSING,
+        *,
+        minimum: float | None = None,
+        strict: bool = False,
+    ) -> float:
+        value = self._get(name, default)
+        if value is None:
+            return value
+        return _check_number(value, self.key(name), minimum=minimum, strict=strict)
+
+    def integer(self, name: str, default: Any = _MISSING, *, minimum: int = 1) -> int:
+        value = self._get(name, default)
+        if value is None:
+            return value
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ScenarioError(f"`{self.key(name)}` must be an integer, got {value!r}")
+        if value < minimum:
+            raise ScenarioError(f"`{self.key(name)}` must be >= {minimum}, got {value}")
+        return value
+
+    def string(self, name: str, default: Any = _MISSING, *, choices: tuple[str, ...] = ()) -> str:
+        value = self._get(name, default)
+        if not isinstance(value, str):
+            raise ScenarioError(f"`{self.key(name)}` must be a string, got {value!r}")
+        if choices and value not in choices:
+            raise ScenarioError(
+                f"`{self.key(name)}` must be one of {', '.join(choices)}; got {value!r}"
+            )
+        return value
+
+    def boolean(self, name: str, default: Any = _MISSING) -> bool:
+        value = self._get(name, default)
+        if not isinstance(value, bool):
+            raise ScenarioError(f"`{self.key(name)}` must be true or false, got {value!r}")
+        return value
+
+    def table(self, name: str) -> _Table | None:
+        value = self._get(name, None)
+        return None if value is None else _Table(value, self.key(name))
+
+    def tables(self, name: str) -> list[_Table]:
+        value = self._get(name, [])
+        if not isinstance(value, list):
+            raise ScenarioError(f"`{self.key(name)}` must be an array of tables, got {value!r}")
+        return [_Table(item, f"{self.key(name)}[{i}]") for i, item in enumerate(value)]
+
+    def raw(self, name: str) -> Any:
+        return self._get(name, _MISSING)
+
+    def finish(self, allowed: tuple[str, ...] | None = None) -> None:
+        """Refuse keys that were not read (or, with `allowed`, keys outside that list)."""
+        permitted = set(allowed) if allowed is not None else self.used
+        unknown = sorted(set(self.data) - permitted)
+        if unknown:
+            where = f"in `{self.path}`" if self.path else "at the top level"
+            raise ScenarioError(
+                f"unknown key `{unknown[0]}` {where}; allowed: {', '.join(sorted(permitted))}"
+            )
+
+
+def _check_number(value: Any, key: str, *, minimum: float | None, strict: bool) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise ScenarioError(f"`{key}` must be a number, got {value!r}")
+    value = float(value)
+    if not math.isfinite(value):
+        raise ScenarioError(f"`{key}` must be finite, got {value}")
+    if minimum is not None and (value <= minimum if strict else value < minimum):
+        relation = ">" if strict else ">="
+        raise ScenarioError(f"`{key}` must be {relation} {minimum:g}, got {value:g}")
+    return value
+
+
+_TOP_KEYS = ("name", "description", "spins", "drive", "sweep", "cycle", "trotter")
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario file."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ScenarioError(f"cannot read scenario file {str(path)!r}: {exc.strerror}") from None
+    return parse_scenario(text, default_name=path.stem)
+
+
+def demo_scenario() -> Scenario:
+    """The bundled demo: an invented cluster of four 13C nuclei (see scenarios/demo.toml)."""
+    text = resources.files("dnpqc").joinpath("scenarios/demo.toml").read_text(encoding="utf-8")
+    return parse_scenario(text, default_name="demo")
+
+
+def parse_scenario(text: str, *, default_name: str = "scenario") -> Scenario:
+    """Validate TOML text into a `Scenario`."""
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ScenarioError(f"scenario is not valid TOML: {exc}") from None
+    return scenario_from_dict(data, default_name=default_name, digest=_digest(text))
+
+
+def _digest(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+def scenario_from_dict(
+    data: dict[str, Any], *, default_name: str = "scenario", digest: str = ""
+) -> Scenario:
+    """Validate an already-parsed scenario mapping (same keys as the TOML file)."""
+    top = _Table(data, "")
+    top.finish(_TOP_KEYS)
+    name = top.string("name", default_name)
+    top.string("description", "")
+    system = _read_spins(_required_table(top, "spins"))
+    drive = _required_table(top, "drive")
+    sweep_table = top.table("sweep")
+    swept = _swept_parameter(sweep_table, drive)
+    cycle = top.table("cycle") or _Table({}, "cycle")
+    protocol = _read_protocol(drive, cycle, swept)
+    count = cycle.integer("count", 1)
+    cycle.finish()
+    trotter = _read_trotter(top.table("trotter") or _Table({}, "trotter"))
+    sweep = _read_sweep(sweep_table, protocol, swept or _DEFAULT_SWEPT[protocol.kind])
+    _check_sweep_values(protocol, sweep)
+    if math.isnan(getattr(protocol, sweep.parameter)):
+        # a swept key left out of [drive]/[cycle]: record the first grid value
+        protocol = replace(protocol, **{sweep.parameter: sweep.values[0]})
+    if not digest:
+        digest = _digest(repr(sorted(data.items())))
+    return Scenario(name, system, protocol, sweep, count, trotter, digest)
+
+
+def _required_table(parent: _Table, name: str) -> _Table:
+    table = parent.table(name)
+    if table is None:
+        raise ScenarioError(f"missing table `[{parent.key(name)}]`")
+    return table
+
+
+def _read_spins(spins: _Table) -> SpinSystem:
+    field_t = spins.number("field_t", minimum=0.0, strict=True)
+    nuclei = [_read_nucleus(t) for t in spins.tables("nuclei")]
+    lattice = spins.table("lattice")
+    if lattice is not None:
+        nuclei += _read_lattice(lattice, taken={n.label for n in nuclei})
+    if not nuclei:
+        raise ScenarioError(
+            "`spins` needs at least one nucleus: `[[spins.nuclei]]` or `[spins.lattice]`"
+        )
+    labels = [n.label for n in nuclei]
+    duplicates = sorted({x for x in labels if labels.count(x) > 1})
+    if duplicates:
+        raise ScenarioError(f"`spins.nuclei.label` must be unique; {duplicates[0]!r} repeats")
+    dipolar = spins.boolean("dipolar", True)
+    couplings = _position_couplings(nuclei) if dipolar else {}
+    couplings.update(_read_couplings(spins.tables("couplings"), labels))
+    spins.finish()
+    return SpinSystem(
+        field_t=field_t,
+        nuclei=tuple(nuclei),
+        couplings=tuple(Coupling(j, k, d) for (j, k), d in sorted(couplings.items()) if d != 0.0),
+    )
+
+
+def _read_nucleus(t: _Table) -> Nucleus:
+    label = t.string("label")
+    if not label.strip():
+        raise ScenarioError(f"`{t.key('label')}` must not be empty")
+    has_hf = t.has("a_par_hz") or t.has("a_perp_hz")
+    has_pos = t.has("position_nm")
+    if has_hf == has_pos:
+        which = "both" if has_hf else "neither"
+        raise ScenarioError(
+            f"`{t.path}` ({label!r}) has {which} of `a_par_hz`+`a_perp_hz` and `position_nm`; "
+            "give exactly one of them"
+        )
+    if has_pos:
+        position = _read_vector(t.raw("position_nm"), t.key("position_nm"))
+        a_par, a_perp = hyperfine_from_position(position)
+    else:
+        a_par, a_perp = t.number("a_par_hz"), t.number("a_perp_hz")
+        position = None
+    t.finish()
+    return Nucleus(label, a_par, a_perp, position)
+
+
+def _read_vector(value: Any, key: str) -> tuple[float, float, float]:
+    if not isinstance(value, list) or len(value) != 3:
+        raise ScenarioError(
+            f"`{key}` must be a list of three numbers [x, y, z] in nm, got {value!r}"
+        )
+    vec = tuple(_check_number(v, key, minimum=None, strict=False) for v in value)
+    if not any(vec):
+        raise ScenarioError(f"`{key}` must not be the NV site [0, 0, 0]")
+    return vec
+
+
+def _read_lattice(t: _Table, taken: set[str]) -> list[Nucleus]:
+    positions = random_cluster_nm(
+        radius_nm=t.number("radius_nm", minimum=0.0, strict=True),
+        seed=t.integer("seed", minimum=0),
+        abundance=t.number("abundance", 0.0107, minimum=0.0, strict=True),
+        min_distance_nm=t.number("min_distance_nm", 0.0, minimum=0.0),
+        max_nuclei=t.integer("max_nuclei", None, minimum=1),
+    )
+    prefix = t.string("label_prefix", "L")
+    t.finish()
+    if not positions:
+        raise ScenarioError(
+            f"`{t.path}` produced no 13C site; raise `radius_nm` or `abundance`, or change `seed`"
+        )
+    nuclei = []
+    for i, pos in enumerate(positions, start=1):
+        label = f"{prefix}{i}"
+        if label in taken:
+            raise ScenarioError(f"`{t.key('label_prefix')}` label {label!r} clashes with a nucleus")
+        nuclei.append(Nucleus(label, *hyperfine_from_position(pos), pos))
+    return nuclei
+
+
+def _position_couplings(nuclei: list[Nucleus]) -> dict[tuple[int, int], float]:
+    placed = [(i, n.position_nm) for i, n in enumerate(nuclei) if n.position_nm is not None]
+    return {
+        (i, j): dipolar_from_positions(p, q)
+        for a, (i, p) in enumerate(placed)
+        for (j, q) in placed[a + 1 :]
+    }
+
+
+def _read_couplings(tables: list[_Table], labels: list[str]) -> dict[tuple[int, int], float]:
+    couplings: dict[tuple[int, int], float] = {}
+    for t in tables:
+        pair = t.raw("pair")
+        if not (
+            isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str) for p in pair)
+        ):
+            raise ScenarioError(f"`{t.key('pair')}` must be two nucleus labels, got {pair!r}")
+        for p in pair:
+            if p not in labels:
+                raise ScenarioError(
+                    f"`{t.key('pair')}` names unknown nucleus {p!r}; known: {', '.join(labels)}"
+                )
+        if pair[0] == pair[1]:
+            raise ScenarioError(f"`{t.key('pair')}` must name two different nuclei, got {pair!r}")
+        key = tuple(sorted((labels.index(pair[0]), labels.index(pair[1]))))
+        d_hz = t.number("d_hz")
+        t.finish()
+        couplings[key] = d_hz
+    return couplings
+
+
+_SWEEPABLE = {"spin-lock": SpinLock.sweepable, "pulsed": PulsedBlock.sweepable}
+_DEFAULT_SWEPT = {"spin-lock": "rabi_hz", "pulsed": "tau_s"}
+
+
+def _swept_parameter(sweep: _Table | None, drive: _Table) -> str | None:
+    """The swept key named in `[sweep]`, or None without a sweep table."""
+    kind = drive.string("protocol", choices=tuple(_SWEEPABLE))
+    if sweep is None:
+        return None
+    return sweep.string("parameter", choices=_SWEEPABLE[kind])
+
+
+def _read_protocol(drive: _Table, cycle: _Table, swept: str | None) -> Protocol:
+    """The drive protocol; a key that `[sweep]` sweeps may be left out of `[drive]`/`[cycle]`."""
+    kind = drive.string("protocol")
+
+    def drive_value(name: str, default: Any = _MISSING, **limits: Any) -> float:
+        if name == swept and not drive.has(name):
+            drive.used.add(name)
+            return math.nan  # filled in per sweep point
+        return drive.number(name, default, **limits)
+
+    detuning = drive_value("detuning_hz", 0.0)
+    if kind == "spin-lock":
+        rabi = drive_value("rabi_hz", minimum=0.0)
+        if swept == "interaction_time_s" and not cycle.has("interaction_time_s"):
+            cycle.used.add("interaction_time_s")
+            time_s = math.nan
+        else:
+            time_s = cycle.number("interaction_time_s", minimum=0.0, strict=True)
+        drive.finish(("protocol", "rabi_hz", "detuning_hz"))
+        cycle.finish(("count", "interaction_time_s"))
+        return SpinLock(rabi_hz=rabi, detuning_hz=detuning, interaction_time_s=time_s)
+    sequence = drive.string("sequence", "pulsepol", choices=(*NAMED_BLOCKS, "custom"))
+    if sequence == "custom":
+        elements = _read_block(drive.tables("block"))
+    elif drive.has("block"):
+        raise ScenarioError('`drive.block` needs `drive.sequence = "custom"`')
+    else:
+        elements = NAMED_BLOCKS[sequence]
+    tau = drive_value("tau_s", minimum=0.0, strict=True)
+    pulse_rabi = drive.number("pulse_rabi_hz", None, minimum=0.0, strict=True)
+    blocks = cycle.integer("blocks", minimum=1)
+    drive.finish(("protocol", "sequence", "block", "tau_s", "pulse_rabi_hz", "detuning_hz"))
+    cycle.finish(("count", "blocks"))
+    return PulsedBlock(sequence, elements, tau, blocks, detuning, pulse_rabi)
+
+
+def _read_block(tables: list[_Table]) -> tuple[BlockPulse | BlockWait, ...]:
+    elements: list[BlockPulse | BlockWait] = []
+    for t in tables:
+        if t.has("wait"):
+            elements.append(BlockWait(t.number("wait", minimum=0.0, strict=True)))
+            t.finish(("wait",))
+            continue
+        angle = math.radians(t.number("angle_deg", minimum=0.0, strict=True))
+        if t.has("axis") == t.has("phase_deg"):
+            raise ScenarioError(
+                f"`{t.path}` needs exactly one of `axis` (x, y, -x, -y) and `phase_deg`, "
+                "or `wait` for a free window"
+            )
+        if t.has("axis"):
+            phase = AXIS_PHASES_RAD[t.string("axis", choices=tuple(AXIS_PHASES_RAD))]
+        else:
+            phase = math.radians(t.number("phase_deg"))
+        t.finish(("angle_deg", "axis", "phase_deg"))
+        elements.append(BlockPulse(angle, phase))
+    if not any(isinstance(e, BlockWait) for e in elements) or not any(
+        isinstance(e, BlockPulse) for e in elements
+    ):
+        raise ScenarioError("`drive.block` needs at least one pulse and at least one `wait`")
+    return tuple(elements)
+
+
+def _read_trotter(t: _Table) -> TrotterSettings:
+    settings = TrotterSettings(
+        steps=t.integer("steps", 40),
+        order=t.integer("order", 2),
+        pulse_steps=t.integer("pulse_steps", 2),
+    )
+    if settings.order not in (1, 2):
+        raise ScenarioError(f"`trotter.order` must be 1 or 2, got {settings.order}")
+    t.finish()
+    return settings
+
+
+def _read_sweep(t: _Table | None, protocol: Protocol, swept: str) -> Sweep:
+    if t is None:
+        return Sweep(swept, (float(getattr(protocol, swept)),))
+    start, stop = t.number("start"), t.number("stop")
+    points = t.integer("points", minimum=1)
+    t.finish()
+    if points == 1 and start != stop:
+        raise ScenarioError(
+            f"`sweep.points` = 1 needs `sweep.start` == `sweep.stop`, got {start:g}, {stop:g}"
+        )
+    return Sweep(swept, tuple(float(v) for v in np.linspace(start, stop, points)))
+
+
+def _check_sweep_values(protocol: Protocol, sweep: Sweep) -> None:
+    values = np.asarray(sweep.values)
+    name = sweep.parameter
+    if name == "rabi_hz" and values.min() < 0:
+        raise ScenarioError(f"swept `rabi_hz` must be >= 0, got {values.min():g}")
+    if name in ("tau_s", "interaction_time_s") and values.min() <= 0:
+        raise ScenarioError(f"swept `{name}` must be > 0, got {values.min():g}")
+    if isinstance(protocol, PulsedBlock) and protocol.pulse_rabi_hz:
+        tau_min = values.min() if name == "tau_s" else protocol.tau_s
+        window = shortest_window_s(protocol, tau_min)
+        if window < 0:
+            raise ScenarioError(
+                f"`drive.tau_s` = {tau_min:g} s is too short for finite pulses at "
+                f"`drive.pulse_rabi_hz` = {protocol.pulse_rabi_hz:g}: a free window would last "
+                f"{window:g} s; raise tau_s or pulse_rabi_hz"
+            )

@@ -1,0 +1,283 @@
+"""Trotter compilation: first a plan (pure data), then a qiskit `QuantumCircuit`.
+
+A term h·P of H/h (Hz) evolves for dt as exp(-2πi·h·dt·P) = R_P(θ) with θ = 4π·h·dt, where
+R_P(θ) = exp(-i·θ/2·P) is qiskit's rotation convention. Angles are affine in the swept quantity x
+(`Linear`) and become `Parameter` expressions of one Parameter named after the swept key.
+
+One Trotter step is a sequence of layers; a layer holds rotations on disjoint qubits (so they
+commute exactly). Single-qubit terms form one layer per Pauli letter; the two-qubit terms are
+grouped by qubit pair, and the pairs are edge-coloured (greedy colouring of the line graph) so
+pairs of one colour share no qubit. Order 1: S1(dt) = Π_layers exp(...dt); order 2 (Strang):
+S2(dt) = S1(dt/2)·reversed S1(dt/2). Adjacent layers with identical rotations are merged.
+
+Hardware-executable preparation of the maximally mixed nuclear state: for each nucleus j,
+H_j, CX(j → NV), reset NV. The CX leaves nucleus and NV in a Bell state; resetting the NV
+discards its half, so nucleus j is left exactly in I/2 (the NV is the ancilla of a dilation).
+"""
+
+from __future__ import annotations
+
+import math
+from collections import defaultdict
+from dataclasses import dataclass
+
+import networkx as nx
+from qiskit.circuit import Parameter, QuantumCircuit
+from qiskit_aer.library import SaveProbabilities
+
+from .model import SpinSystem, hamiltonian
+from .protocols import CycleSchedule, Evolve, Linear, Pulse
+
+
+@dataclass(frozen=True)
+class PauliRotation:
+    """exp(-i·θ/2·P) with P = ⊗ pauli[i] on qubits[i]; θ (rad) = angle.at(x)."""
+
+    pauli: str
+    qubits: tuple[int, ...]
+    angle: Linear
+
+
+@dataclass(frozen=True)
+class Layer:
+    """Rotations on pairwise disjoint qubits."""
+
+    rotations: tuple[PauliRotation, ...]
+
+    def signature(self) -> tuple[tuple[str, tuple[int, ...]], ...]:
+        return tuple((r.pauli, r.qubits) for r in self.rotations)
+
+
+@dataclass(frozen=True)
+class NVRotation:
+    """Ideal NV pulse R_φ(θ), qiskit's r(θ, φ) on qubit 0."""
+
+    angle_rad: float
+    phase_rad: float
+
+
+Operation = Layer | NVRotation
+
+
+@dataclass(frozen=True)
+class CyclePlan:
+    """The operations of one cycle (after the NV reset), in time order."""
+
+    operations: tuple[Operation, ...]
+
+    def layers(self) -> list[Layer]:
+        return [op for op in self.operations if isinstance(op, Layer)]
+
+
+@dataclass(frozen=True)
+class ProgramPlan:
+    """A whole program: mixed-state preparation, then `cycles` × (NV reset, cycle)."""
+
+    num_qubits: int
+    cycles: int
+    cycle: CyclePlan
+    parameter_name: str
+    pair_colours: dict[tuple[int, int], int]
+
+    def layering(self) -> dict[str, object]:
+        """Counts per cycle: layers, rotations by Pauli, two-qubit layers and colours."""
+        layers = self.cycle.layers()
+        by_pauli: dict[str, int] = defaultdict(int)
+        for layer in layers:
+            for rot in layer.rotations:
+                by_pauli[rot.pauli] += 1
+        return {
+            "layers_per_cycle": len(layers),
+            "two_qubit_layers_per_cycle": sum(
+                1 for ly in layers if len(ly.rotations[0].qubits) == 2
+            ),
+            "rotations_per_cycle": dict(sorted(by_pauli.items())),
+            "ideal_pulses_per_cycle": sum(
+                isinstance(op, NVRotation) for op in self.cycle.operations
+            ),
+            "pair_colours": len(set(self.pair_colours.values())),
+        }
+
+
+def pauli_terms(system: SpinSystem, segment: Evolve) -> dict[tuple[str, tuple[int, ...]], Linear]:
+    """Non-identity terms of H/h during `segment`, as {(pauli, qubits): coefficient in Hz}."""
+    static = hamiltonian(
+        system,
+        rabi_hz=segment.rabi_hz.offset,
+        detuning_hz=segment.detuning_hz.offset,
+        phase_rad=segment.phase_rad,
+    )
+    moved = hamiltonian(
+        system,
+        rabi_hz=segment.rabi_hz.offset + segment.rabi_hz.slope,
+        detuning_hz=segment.detuning_hz.offset + segment.detuning_hz.slope,
+        phase_rad=segment.phase_rad,
+    )
+    offsets = _by_support(static)
+    slopes = _by_support(moved)
+    terms = {}
+    for key in sorted(set(offsets) | set(slopes)):
+        coeff = Linear(offsets.get(key, 0.0), slopes.get(key, 0.0) - offsets.get(key, 0.0))
+        if coeff.offset != 0.0 or coeff.slope != 0.0:
+            terms[key] = coeff
+    return terms
+
+
+def _by_support(op) -> dict[tuple[str, tuple[int, ...]], float]:
+    out: dict[tuple[str, tuple[int, ...]], float] = {}
+    for label, coeff in op.to_list():
+        qubits = tuple(q for q in range(len(label)) if label[len(label) - 1 - q] != "I")
+        if not qubits:
+            continue
+        if abs(coeff.imag) > 1e-12:
+            raise ValueError(f"non-Hermitian term {label}: {coeff}")
+        pauli = "".join(label[len(label) - 1 - q] for q in qubits)
+        out[(pauli, qubits)] = out.get((pauli, qubits), 0.0) + float(coeff.real)
+    return out
+
+
+def colour_pairs(pairs: list[tuple[int, int]]) -> dict[tuple[int, int], int]:
+    """Edge colouring of the interaction graph: pairs with one colour share no qubit."""
+    graph = nx.Graph(pairs)
+    colouring = nx.greedy_color(nx.line_graph(graph), strategy="largest_first")
+    return {tuple(sorted(edge)): colour for edge, colour in colouring.items()}
+
+
+def step_layers(
+    terms: dict[tuple[str, tuple[int, ...]], Linear],
+    dt: Linear,
+    colours: dict[tuple[int, int], int],
+) -> list[Layer]:
+    """Layers of one first-order step of length dt (s); θ = 4π·h·dt per term."""
+
+    def rotation(key: tuple[str, tuple[int, ...]]) -> PauliRotation:
+        return PauliRotation(key[0], key[1], terms[key].times(dt).scaled(4 * math.pi))
+
+    layers: list[Layer] = []
+    for letter in "ZXY":
+        single = [rotation(k) for k in terms if len(k[1]) == 1 and k[0] == letter]
+        if single:
+            layers.append(Layer(tuple(sorted(single, key=lambda r: r.qubits))))
+    per_pair: dict[tuple[int, int], list[tuple[str, tuple[int, ...]]]] = defaultdict(list)
+    for key in terms:
+        if len(key[1]) == 2:
+            per_pair[key[1]].append(key)
+    for colour in sorted(set(colours[p] for p in per_pair)):
+        pairs = sorted(p for p in per_pair if colours[p] == colour)
+        depth = max(len(per_pair[p]) for p in pairs)
+        for i in range(depth):
+            rots = [rotation(per_pair[p][i]) for p in pairs if i < len(per_pair[p])]
+            layers.append(Layer(tuple(rots)))
+    return layers
+
+
+def _segment_operations(
+    system: SpinSystem, segment: Evolve, order: int, colours: dict[tuple[int, int], int]
+) -> list[Layer]:
+    terms = pauli_terms(system, segment)
+    dt = segment.duration_s.scaled(1.0 / segment.steps)
+    if order == 1:
+        step = step_layers(terms, dt, colours)
+    else:
+        half = step_layers(terms, dt.scaled(0.5), colours)
+        step = half + half[::-1]
+    return step * segment.steps
+
+
+def merge_layers(operations: list[Operation]) -> list[Operation]:
+    """Fuse consecutive layers with the same rotations: R_P(a)·R_P(b) = R_P(a + b)."""
+    merged: list[Operation] = []
+    for op in operations:
+        last = merged[-1] if merged else None
+        if isinstance(op, Layer) and isinstance(last, Layer) and last.signature() == op.signature():
+            merged[-1] = Layer(
+                tuple(
+                    PauliRotation(a.pauli, a.qubits, a.angle + b.angle)
+                    for a, b in zip(last.rotations, op.rotations, strict=True)
+                )
+            )
+        else:
+            merged.append(op)
+    return merged
+
+
+def plan_program(
+    system: SpinSystem, schedule: CycleSchedule, *, cycles: int, order: int, parameter_name: str
+) -> ProgramPlan:
+    """Trotter plan of `cycles` cycles of `schedule` on NV + nuclei."""
+    pairs = [(0, j) for j in range(1, system.num_qubits)]
+    pairs += [(c.first + 1, c.second + 1) for c in system.couplings]
+    colours = colour_pairs(pairs)
+    operations: list[Operation] = []
+    for segment in schedule.segments():
+        if isinstance(segment, Pulse):
+            operations.append(NVRotation(segment.angle_rad, segment.phase_rad))
+        else:
+            operations.extend(_segment_operations(system, segment, order, colours))
+    cycle = CyclePlan(tuple(merge_layers(operations)))
+    return ProgramPlan(system.num_qubits, cycles, cycle, parameter_name, colours)
+
+
+def _angle(value: Linear, parameter: Parameter):
+    return value.offset if value.slope == 0.0 else value.offset + value.slope * parameter
+
+
+def _append_rotation(circuit: QuantumCircuit, rot: PauliRotation, parameter: Parameter) -> None:
+    theta = _angle(rot.angle, parameter)
+    if len(rot.qubits) == 1:
+        getattr(circuit, "r" + rot.pauli.lower())(theta, rot.qubits[0])
+        return
+    a, b = rot.qubits
+    if rot.pauli in ("ZZ", "XX", "YY"):
+        getattr(circuit, "r" + rot.pauli.lower())(theta, a, b)
+    elif rot.pauli == "ZX":
+        circuit.rzx(theta, a, b)
+    elif rot.pauli == "XZ":
+        circuit.rzx(theta, b, a)
+    else:
+        raise ValueError(f"no native rotation for Pauli {rot.pauli} on {rot.qubits}")
+
+
+def prepare_mixed_nuclei(circuit: QuantumCircuit, nv: int, nuclei: list[int]) -> None:
+    """Leave every nuclear qubit in I/2: H, CX(nucleus → NV), reset NV, for each nucleus."""
+    for q in nuclei:
+        circuit.h(q)
+        circuit.cx(q, nv)
+        circuit.reset(nv)
+
+
+def cycle_circuit(plan: ProgramPlan, parameter: Parameter) -> QuantumCircuit:
+    """The unitary part of one cycle (after the NV reset) as a circuit."""
+    circuit = QuantumCircuit(plan.num_qubits, name="cycle")
+    for op in plan.cycle.operations:
+        if isinstance(op, NVRotation):
+            circuit.r(op.angle_rad, op.phase_rad, 0)
+        else:
+            for rot in op.rotations:
+                _append_rotation(circuit, rot, parameter)
+    return circuit
+
+
+def cycle_label(cycle: int) -> str:
+    """Label of the saved nuclear probabilities after cycle `cycle` (1-based)."""
+    return f"cycle_{cycle}"
+
+
+def build_circuit(plan: ProgramPlan, *, save: bool = True) -> QuantumCircuit:
+    """The logical circuit of `plan`: qubit 0 the NV, qubits 1..n the nuclei.
+
+    With `save`, the probabilities of the nuclear qubits (ordered 1..n) are saved after each
+    cycle under `cycle_label(c)` (Aer `save_probabilities`, which is safe after transpiling).
+    """
+    parameter = Parameter(plan.parameter_name)
+    circuit = QuantumCircuit(plan.num_qubits, name="dnp_program")
+    nuclei = list(range(1, plan.num_qubits))
+    prepare_mixed_nuclei(circuit, 0, nuclei)
+    body = cycle_circuit(plan, parameter)
+    for c in range(1, plan.cycles + 1):
+        circuit.reset(0)
+        circuit.compose(body, inplace=True)
+        if save:
+            circuit.barrier()
+            circuit.append(SaveProbabilities(len(nuclei), label=cycle_label(c)), nuclei)
+    return circuit

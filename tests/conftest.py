@@ -1,0 +1,94 @@
+"""Shared fixtures: small scenarios written as TOML text, as a user would."""
+
+import pytest
+
+from dnpqc import parse_scenario
+
+ONE_NUCLEUS = """
+[spins]
+field_t = {field_t}
+[[spins.nuclei]]
+label = "C1"
+a_par_hz = {a_par}
+a_perp_hz = {a_perp}
+[drive]
+protocol = "spin-lock"
+rabi_hz = {rabi}
+[cycle]
+interaction_time_s = {time_s}
+count = {count}
+[trotter]
+steps = {steps}
+order = {order}
+"""
+
+
+def one_nucleus(
+    *,
+    field_t=0.05,
+    a_par=20e3,
+    a_perp=20e3,
+    rabi=500e3,
+    time_s=20e-6,
+    count=1,
+    steps=40,
+    order=2,
+    sweep="",
+):
+    """A one-nucleus spin-lock scenario; `sweep` is extra TOML appended verbatim."""
+    text = ONE_NUCLEUS.format(
+        field_t=field_t,
+        a_par=a_par,
+        a_perp=a_perp,
+        rabi=rabi,
+        time_s=time_s,
+        count=count,
+        steps=steps,
+        order=order,
+    )
+    return parse_scenario(text + sweep)
+
+
+THREE_NUCLEI = """
+[spins]
+field_t = 0.03
+[[spins.nuclei]]
+label = "A"
+a_par_hz = 25e3
+a_perp_hz = 12e3
+[[spins.nuclei]]
+label = "B"
+a_par_hz = -10e3
+a_perp_hz = 8e3
+[[spins.nuclei]]
+label = "C"
+a_par_hz = 5e3
+a_perp_hz = 15e3
+[[spins.couplings]]
+pair = ["A", "C"]
+d_hz = 900.0
+[[spins.couplings]]
+pair = ["B", "C"]
+d_hz = -400.0
+[drive]
+protocol = "spin-lock"
+rabi_hz = 330e3
+detuning_hz = 3e3
+[sweep]
+parameter = "rabi_hz"
+start = 315e3
+stop = 345e3
+points = 4
+[cycle]
+interaction_time_s = 12e-6
+count = 3
+[trotter]
+steps = 30
+order = 2
+"""
+
+
+@pytest.fixture
+def three_nuclei():
+    """Three nuclei with two dipolar couplings and a detuning (invented test values)."""
+    return parse_scenario(THREE_NUCLEI)

@@ -1,0 +1,105 @@
+"""The command line, run in-process end to end."""
+
+import json
+
+import pytest
+
+from dnpqc.cli import main
+
+SMALL = """
+name = "small"
+[spins]
+field_t = 0.05
+[[spins.nuclei]]
+label = "C1"
+a_par_hz = 20e3
+a_perp_hz = 20e3
+[[spins.nuclei]]
+label = "C2"
+a_par_hz = -30e3
+a_perp_hz = 10e3
+[drive]
+protocol = "spin-lock"
+rabi_hz = 530e3
+[sweep]
+parameter = "rabi_hz"
+start = 515e3
+stop = 550e3
+points = 8
+[cycle]
+interaction_time_s = 20e-6
+count = 3
+[trotter]
+steps = 60
+"""
+
+
+@pytest.fixture
+def small(tmp_path):
+    path = tmp_path / "small.toml"
+    path.write_text(SMALL)
+    return path
+
+
+def test_run_writes_report_and_summary(small, tmp_path, capsys):
+    out = tmp_path / "out"
+    assert main(["run", str(small), "--out", str(out)]) == 0
+    for name in ("report.json", "sweep.csv", "spectrum.png", "buildup.png", "engines.png"):
+        assert (out / name).stat().st_size > 0
+    report = json.loads((out / "report.json").read_text())
+    assert set(report["engines"]) == {"exact", "trotter"}
+    assert report["trotter_error"] < 0.05
+    peaks = report["analysis"]["exact"]["peaks"]
+    assert set(peaks) == {"C1", "C2"}
+    lines = (out / "sweep.csv").read_text().splitlines()
+    assert lines[0] == "engine,rabi_hz,cycle,nucleus,polarization"
+    assert len(lines) == 1 + 2 * 8 * 3 * 2
+    text = capsys.readouterr().out
+    assert "best common rabi_hz" in text and "report:" in text
+    assert not list(out.glob(".*.tmp"))
+
+
+def test_sweep_json_shape(small, tmp_path):
+    path = tmp_path / "sweep.json"
+    assert main(["sweep", str(small), "--engine", "exact", "--json", str(path)]) == 0
+    data = json.loads(path.read_text())
+    assert set(data) == {"parameter", "values", "nuclei", "cycles", "engine", "polarization"}
+    assert data["parameter"] == "rabi_hz" and data["engine"] == "exact" and data["cycles"] == 3
+    assert len(data["polarization"]) == 8
+    assert len(data["polarization"][0]) == 3 and len(data["polarization"][0][0]) == 2
+
+
+def test_sweep_to_stdout(small, capsys):
+    assert main(["sweep", str(small), "--engine", "trotter"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["engine"] == "trotter"
+
+
+def test_demo_runs_with_no_scenario(tmp_path, capsys):
+    assert main(["run", "--out", str(tmp_path / "demo"), "--engines", "exact"]) == 0
+    assert "scenario 'demo'" in capsys.readouterr().out
+    assert (tmp_path / "demo" / "report.json").exists()
+
+
+@pytest.mark.parametrize(
+    ("argv_tail", "text", "match"),
+    [
+        ([], SMALL.replace("field_t = 0.05", "field_t = -1"), "`spins.field_t` must be > 0"),
+        ([], SMALL.replace("count = 3", "count = 0"), "`cycle.count` must be >= 1"),
+        (["--engines", "exact,magic"], SMALL, "`--engines` must list engines"),
+        (["--bogus"], SMALL, "unrecognized arguments"),
+    ],
+)
+def test_bad_input_one_line_exit_2_no_files(tmp_path, capsys, argv_tail, text, match):
+    path = tmp_path / "bad.toml"
+    path.write_text(text)
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out), *argv_tail]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and match in err and "Traceback" not in err
+    assert not out.exists()
+
+
+def test_missing_scenario_file(tmp_path, capsys):
+    assert main(["sweep", str(tmp_path / "missing.toml")]) == 2
+    assert "cannot read scenario file" in capsys.readouterr().err
