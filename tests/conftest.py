@@ -49,6 +49,29 @@ def one_nucleus(
     return parse_scenario(text + sweep)
 
 
+PULSED = """
+[spins]
+field_t = 0.05
+[[spins.nuclei]]
+label = "C1"
+a_par_hz = 10e3
+a_perp_hz = 10e3
+[drive]
+protocol = "pulsed"
+sequence = "pulsepol"
+tau_s = {tau}
+{extra}
+[cycle]
+blocks = {blocks}
+count = {count}
+"""
+
+
+def pulsed_text(*, tau=2.8e-6, blocks=4, count=1, extra=""):
+    """TOML of a one-nucleus PulsePol scenario; `extra` goes into `[drive]` (or a `[sweep]`)."""
+    return PULSED.format(tau=tau, blocks=blocks, count=count, extra=extra)
+
+
 THREE_NUCLEI = """
 [spins]
 field_t = 0.03

@@ -5,7 +5,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 import scipy.linalg
-from conftest import one_nucleus
+from conftest import one_nucleus, pulsed_text
 from qiskit.circuit import Parameter
 from qiskit.quantum_info import Operator
 
@@ -85,29 +85,9 @@ def test_detuning_and_time_sweeps_compile_as_parameters():
 
 
 def test_pulsed_program_matches_exact():
-    text = """
-[spins]
-field_t = 0.05
-[[spins.nuclei]]
-label = "C1"
-a_par_hz = 10e3
-a_perp_hz = 10e3
-[drive]
-protocol = "pulsed"
-tau_s = 2.8e-6
-pulse_rabi_hz = 10e6
-[sweep]
-parameter = "tau_s"
-start = 2.7e-6
-stop = 2.9e-6
-points = 3
-[cycle]
-blocks = 6
-count = 2
-[trotter]
-steps = 12
-pulse_steps = 2
-"""
+    sweep = '[sweep]\nparameter = "tau_s"\nstart = 2.7e-6\nstop = 2.9e-6\npoints = 3\n'
+    trotter = "[trotter]\nsteps = 12\npulse_steps = 2\n"
+    text = pulsed_text(blocks=6, count=2, extra="pulse_rabi_hz = 10e6") + sweep + trotter
     sc = parse_scenario(text)
     assert max_difference(simulate(sc, "exact"), simulate(sc, "trotter")) < 2e-3
     ideal = parse_scenario(text.replace("pulse_rabi_hz = 10e6\n", ""))

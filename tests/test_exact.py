@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 import qutip
-from conftest import one_nucleus
+from conftest import one_nucleus, pulsed_text
 from helpers import spin_lock_reference
 
 from dnpqc import parse_scenario, simulate
@@ -83,28 +83,11 @@ def test_two_spin_transfer_law(time_s):
     assert abs(p) == pytest.approx(expected, abs=0.02)
 
 
-PULSED = """
-[spins]
-field_t = 0.05
-[[spins.nuclei]]
-label = "C1"
-a_par_hz = 10e3
-a_perp_hz = 10e3
-[drive]
-protocol = "pulsed"
-sequence = "pulsepol"
-tau_s = {tau}
-{extra}
-[cycle]
-blocks = {blocks}
-count = 1
-"""
-
 ALPHA = (2 + math.sqrt(2)) / (3 * math.pi)  # PulsePol n = 3 scaling (Schwartz et al. 2018)
 
 
 def _pulsed(tau, blocks, extra=""):
-    return parse_scenario(PULSED.format(tau=tau, blocks=blocks, extra=extra))
+    return parse_scenario(pulsed_text(tau=tau, blocks=blocks, extra=extra))
 
 
 def test_pulsepol_full_transfer_at_third_order_resonance():
@@ -133,7 +116,7 @@ def test_pulsepol_resonance_positions():
             f'[sweep]\nparameter = "tau_s"\nstart = {0.97 * tau_m}\nstop = {1.03 * tau_m}\n'
             "points = 61\n"
         )
-        text = PULSED.format(tau=tau_m, blocks=10, extra="") + sweep
+        text = pulsed_text(tau=tau_m, blocks=10) + sweep
         result = simulate(parse_scenario(text), "exact")
         curve = np.abs(result.polarization[:, 0, 0])
         step = result.values[1] - result.values[0]
@@ -153,7 +136,7 @@ def test_custom_block_equal_to_builtin_pulsepol():
                 f"[[drive.block]]\nangle_deg = {math.degrees(e.angle_rad)}\n"
                 f'axis = "{axes[e.phase_rad]}"\n'
             )
-    text = PULSED.format(tau=2.8e-6, blocks=7, extra="")
+    text = pulsed_text(tau=2.8e-6, blocks=7)
     custom = text.replace('sequence = "pulsepol"', 'sequence = "custom"').replace(
         "[cycle]", "".join(rows) + "[cycle]"
     )

@@ -5,24 +5,12 @@ import re
 from pathlib import Path
 
 import pytest
-from conftest import THREE_NUCLEI
+from conftest import THREE_NUCLEI, pulsed_text
 
 from dnpqc import ScenarioError, demo_scenario, load_scenario, parse_scenario
 from dnpqc.protocols import PulsedBlock, SpinLock
 
-PULSED = """
-[spins]
-field_t = 0.05
-[[spins.nuclei]]
-label = "C1"
-a_par_hz = 10e3
-a_perp_hz = 10e3
-[drive]
-protocol = "pulsed"
-tau_s = 2.8e-6
-[cycle]
-blocks = 4
-"""
+PULSED = pulsed_text().replace('sequence = "pulsepol"\n', "")  # the default sequence
 
 
 def test_demo_and_examples_load():
@@ -165,7 +153,7 @@ def test_bad_input_is_one_clear_line(name, edit, match):
 PULSED_BAD = [
     (
         "spin-lock key in pulsed",
-        lambda t: _edit(t, "tau_s = 2.8e-6", "tau_s = 2.8e-6\nrabi_hz = 1e6"),
+        lambda t: _edit(t, "[cycle]", "rabi_hz = 1e6\n[cycle]"),
         "unknown key `rabi_hz` in `drive`",
     ),
     ("missing blocks", lambda t: _edit(t, "blocks = 4\n", ""), "missing key `cycle.blocks`"),
@@ -204,7 +192,7 @@ PULSED_BAD = [
     ),
     (
         "pulses longer than tau",
-        lambda t: _edit(t, "tau_s = 2.8e-6", "tau_s = 2.8e-6\npulse_rabi_hz = 1e5"),
+        lambda t: _edit(t, "[cycle]", "pulse_rabi_hz = 1e5\n[cycle]"),
         "too short for finite pulses",
     ),
     (

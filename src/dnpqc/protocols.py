@@ -4,7 +4,7 @@ A segment is either an ideal (instantaneous) NV rotation `Pulse`, or an `Evolve`
 model Hamiltonian with given drive settings. Every time, frequency or duration that depends on the
 swept quantity x is a `Linear` a + b·x, so one compiled circuit serves a whole sweep.
 
-A new pulse sequence is a new tuple of `BlockPulse`/`BlockWait` entries and nothing else.
+A new pulse sequence is a new tuple of `Pulse`/`BlockWait` entries and nothing else.
 """
 
 from __future__ import annotations
@@ -44,7 +44,11 @@ class Linear:
 
 @dataclass(frozen=True)
 class Pulse:
-    """Ideal NV rotation R_φ(θ) = exp(-i·θ/2·(cos φ·X + sin φ·Y)), θ and φ in rad."""
+    """NV rotation R_φ(θ) = exp(-i·θ/2·(cos φ·X + sin φ·Y)), θ and φ in rad.
+
+    As a segment it is ideal (instantaneous); as an element of a pulsed block it may be played
+    as a finite drive window.
+    """
 
     angle_rad: float
     phase_rad: float
@@ -77,37 +81,29 @@ class CycleSchedule:
 
 
 @dataclass(frozen=True)
-class BlockPulse:
-    """A pulse of a pulsed block: rotation angle and phase of its axis in the XY plane, in rad."""
-
-    angle_rad: float
-    phase_rad: float
-
-
-@dataclass(frozen=True)
 class BlockWait:
     """A free-evolution window lasting `fraction` of the block length τ."""
 
     fraction: float
 
 
-BlockElement = BlockPulse | BlockWait
+BlockElement = Pulse | BlockWait
 
 _X, _Y, _MINUS_X, _MINUS_Y = 0.0, math.pi / 2, math.pi, 3 * math.pi / 2
 
 #: The PulsePol block (Schwartz et al., Sci. Adv. 4, eaat8978, 2018), period τ:
 #: (π/2)_X –τ/4– π_{-Y} –τ/4– (π/2)_X (π/2)_Y –τ/4– π_X –τ/4– (π/2)_Y.
 PULSEPOL: tuple[BlockElement, ...] = (
-    BlockPulse(math.pi / 2, _X),
+    Pulse(math.pi / 2, _X),
     BlockWait(0.25),
-    BlockPulse(math.pi, _MINUS_Y),
+    Pulse(math.pi, _MINUS_Y),
     BlockWait(0.25),
-    BlockPulse(math.pi / 2, _X),
-    BlockPulse(math.pi / 2, _Y),
+    Pulse(math.pi / 2, _X),
+    Pulse(math.pi / 2, _Y),
     BlockWait(0.25),
-    BlockPulse(math.pi, _X),
+    Pulse(math.pi, _X),
     BlockWait(0.25),
-    BlockPulse(math.pi / 2, _Y),
+    Pulse(math.pi / 2, _Y),
 )
 
 NAMED_BLOCKS: dict[str, tuple[BlockElement, ...]] = {"pulsepol": PULSEPOL}
@@ -201,7 +197,7 @@ def _pulsed_segments(
             wait_index += 1
             segments.append(Evolve(window, Linear(0.0), 0.0, detuning, steps))
         elif protocol.pulse_rabi_hz is None:
-            segments.append(Pulse(element.angle_rad, element.phase_rad))
+            segments.append(element)
         else:
             duration = pulse_duration_s(element.angle_rad, protocol.pulse_rabi_hz)
             segments.append(

@@ -22,10 +22,10 @@ from .model import Coupling, Nucleus, SpinSystem
 from .protocols import (
     AXIS_PHASES_RAD,
     NAMED_BLOCKS,
-    BlockPulse,
     BlockWait,
     CycleSchedule,
     Protocol,
+    Pulse,
     PulsedBlock,
     SpinLock,
     cycle_schedule,
@@ -399,8 +399,8 @@ def _read_protocol(drive: _Table, cycle: _Table, swept: str | None) -> Protocol:
     return PulsedBlock(sequence, elements, tau, blocks, detuning, pulse_rabi)
 
 
-def _read_block(tables: list[_Table]) -> tuple[BlockPulse | BlockWait, ...]:
-    elements: list[BlockPulse | BlockWait] = []
+def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
+    elements: list[Pulse | BlockWait] = []
     for t in tables:
         if t.has("wait"):
             elements.append(BlockWait(t.number("wait", minimum=0.0, strict=True)))
@@ -417,9 +417,9 @@ def _read_block(tables: list[_Table]) -> tuple[BlockPulse | BlockWait, ...]:
         else:
             phase = math.radians(t.number("phase_deg"))
         t.finish(("angle_deg", "axis", "phase_deg"))
-        elements.append(BlockPulse(angle, phase))
+        elements.append(Pulse(angle, phase))
     if not any(isinstance(e, BlockWait) for e in elements) or not any(
-        isinstance(e, BlockPulse) for e in elements
+        isinstance(e, Pulse) for e in elements
     ):
         raise ScenarioError("`drive.block` needs at least one pulse and at least one `wait`")
     return tuple(elements)

@@ -48,15 +48,8 @@ class Layer:
         return tuple((r.pauli, r.qubits) for r in self.rotations)
 
 
-@dataclass(frozen=True)
-class NVRotation:
-    """Ideal NV pulse R_φ(θ), qiskit's r(θ, φ) on qubit 0."""
-
-    angle_rad: float
-    phase_rad: float
-
-
-Operation = Layer | NVRotation
+#: An ideal NV pulse is kept as the protocol's `Pulse` (qiskit's r(θ, φ) on qubit 0).
+Operation = Layer | Pulse
 
 
 @dataclass(frozen=True)
@@ -92,9 +85,7 @@ class ProgramPlan:
                 1 for ly in layers if len(ly.rotations[0].qubits) == 2
             ),
             "rotations_per_cycle": dict(sorted(by_pauli.items())),
-            "ideal_pulses_per_cycle": sum(
-                isinstance(op, NVRotation) for op in self.cycle.operations
-            ),
+            "ideal_pulses_per_cycle": sum(isinstance(op, Pulse) for op in self.cycle.operations),
             "pair_colours": len(set(self.pair_colours.values())),
         }
 
@@ -211,7 +202,7 @@ def plan_program(
     operations: list[Operation] = []
     for segment in schedule.segments():
         if isinstance(segment, Pulse):
-            operations.append(NVRotation(segment.angle_rad, segment.phase_rad))
+            operations.append(segment)
         else:
             operations.extend(_segment_operations(system, segment, order, colours))
     cycle = CyclePlan(tuple(merge_layers(operations)))
@@ -250,7 +241,7 @@ def cycle_circuit(plan: ProgramPlan, parameter: Parameter) -> QuantumCircuit:
     """The unitary part of one cycle (after the NV reset) as a circuit."""
     circuit = QuantumCircuit(plan.num_qubits, name="cycle")
     for op in plan.cycle.operations:
-        if isinstance(op, NVRotation):
+        if isinstance(op, Pulse):
             circuit.r(op.angle_rad, op.phase_rad, 0)
         else:
             for rot in op.rotations:
