@@ -103,3 +103,65 @@ def test_bad_input_one_line_exit_2_no_files(tmp_path, capsys, argv_tail, text, m
 def test_missing_scenario_file(tmp_path, capsys):
     assert main(["sweep", str(tmp_path / "missing.toml")]) == 2
     assert "cannot read scenario file" in capsys.readouterr().err
+
+
+def test_budget_json_and_table(small, tmp_path, capsys):
+    path = tmp_path / "budget.json"
+    argv = [
+        "budget",
+        str(small),
+        "--processor",
+        "line:4",
+        "--json",
+        str(path),
+        "--compare",
+        "grid:2x2,full:3",
+    ]
+    assert main(argv) == 0
+    data = json.loads(path.read_text())
+    for key in ("processor", "qubits", "per_cycle", "total", "trotter_error", "compare"):
+        assert key in data
+    for part in ("per_cycle", "total"):
+        assert {
+            "one_qubit",
+            "two_qubit",
+            "swaps",
+            "resets",
+            "measurements",
+            "depth",
+            "two_qubit_depth",
+            "duration_s",
+            "success_estimate",
+        } <= set(data[part])
+    assert data["processor"]["name"] == "line:4"
+    assert data["total"]["measurements"] == 2 and data["total"]["resets"] == 2 + 3
+    assert 0 < data["total"]["success_estimate"] < 1
+    assert [r["processor"] for r in data["compare"]] == ["grid:2x2", "full:3"]
+    out = capsys.readouterr().out
+    assert "per cycle" in out and "success estimate" in out and "Trotter error" in out
+
+
+@pytest.mark.parametrize(
+    ("argv_tail", "match"),
+    [
+        (["--processor", "line:2"], "has 2 qubits; the program needs 3"),
+        (["--processor", "blob:5"], "is not a topology"),
+        (["--target-error", "-1"], "`--target-error` must be > 0"),
+        (["--compare", "line:4,ring:x"], "is not a topology"),
+    ],
+)
+def test_budget_bad_input(small, capsys, argv_tail, match):
+    assert main(["budget", str(small), *argv_tail]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and match in err
+
+
+def test_run_with_processor_writes_budget(tmp_path):
+    path = tmp_path / "p.toml"
+    path.write_text(SMALL + '[processor]\ntopology = "line:3"\ncompare = ["full:3"]\n')
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out), "--engines", "exact"]) == 0
+    report = json.loads((out / "report.json").read_text())
+    assert report["budget"]["processor"]["name"] == "line:3"
+    assert [r["processor"] for r in report["compare"]] == ["line:3", "full:3"]
+    assert (out / "budget.png").stat().st_size > 0

@@ -1,4 +1,4 @@
-"""Command line: `dnpqc run`, `dnpqc sweep`. User errors: one line on stderr, exit code 2."""
+"""Command line: `dnpqc run`, `sweep`, `budget`. User errors: one line on stderr, exit code 2."""
 
 from __future__ import annotations
 
@@ -9,10 +9,11 @@ from pathlib import Path
 
 from tqdm import tqdm
 
-from . import report
+from . import codesign, report
 from .engines import ENGINES, simulate
 from .errors import ScenarioError
 from .job import RunOutcome, run_scenario
+from .processor import Processor, make_processor, processor_for_spec
 from .scenario import Scenario, demo_scenario, load_scenario
 
 EXIT_USAGE = 2
@@ -34,6 +35,30 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("scenario", nargs="?", help="scenario TOML file (default: the bundled demo)")
     run.add_argument("--out", default=None, help="output folder (default: results/<scenario name>)")
     run.add_argument("--engines", default="exact,trotter", help="comma-separated engines to run")
+    budget = sub.add_parser("budget", help="gate budget of the program on a processor")
+    budget.add_argument("scenario", help="scenario TOML file")
+    budget.add_argument(
+        "--processor",
+        default=None,
+        help="topology (e.g. grid:3x3) or preset; replaces the scenario's topology",
+    )
+    budget.add_argument("--json", default=None, help="write the budget JSON here")
+    budget.add_argument(
+        "--compare",
+        default=None,
+        help="comma-separated topologies to compare, e.g. line:7,grid:3x3,star:7",
+    )
+    budget.add_argument(
+        "--target-error",
+        type=float,
+        default=None,
+        help="advise the fewest Trotter steps with Trotter error below this",
+    )
+    budget.add_argument(
+        "--scaling",
+        action="store_true",
+        help="2q gates per cycle vs number of nuclei (1..12) on each graph kind",
+    )
     sweep = sub.add_parser("sweep", help="one engine over the sweep, JSON out")
     sweep.add_argument("scenario", help="scenario TOML file")
     sweep.add_argument("--engine", default="exact", choices=tuple(ENGINES))
@@ -88,6 +113,8 @@ def write_run(outcome: RunOutcome, out: Path) -> None:
     }
     if len(outcome.results) > 1:
         figures["engines.png"] = report.comparison_figure(list(outcome.results.values()))
+    if outcome.compare:
+        figures["budget.png"] = report.budget_figure(outcome.compare)
     payload = outcome.to_json()
     csv_text = report.sweep_csv(list(outcome.results.values()))
     for name, fig in figures.items():
@@ -112,11 +139,41 @@ def _cmd_sweep(args) -> int:
     return 0
 
 
+def scenario_processor(scenario: Scenario, spec: str | None) -> Processor:
+    """The processor of a run: `--processor` over the scenario's `[processor]` over defaults."""
+    base = scenario.processor
+    if spec is not None:
+        return processor_for_spec(spec, base)
+    return base if base is not None else make_processor({})
+
+
+def _cmd_budget(args) -> int:
+    scenario = load_scenario(args.scenario)
+    processor = scenario_processor(scenario, args.processor)
+    specs = [s.strip() for s in args.compare.split(",") if s.strip()] if args.compare else []
+    compared = [processor_for_spec(s, processor) for s in specs]
+    if args.target_error is not None and not args.target_error > 0:
+        raise ScenarioError(f"`--target-error` must be > 0, got {args.target_error:g}")
+    data = codesign.program_budget(scenario, processor)
+    data["trotter_error"] = codesign.trotter_error(scenario)
+    if compared:
+        data["compare"] = codesign.compare_processors(scenario, compared)
+    if args.target_error is not None:
+        data["steps_advice"] = codesign.steps_advice(scenario, processor, args.target_error)
+    if args.scaling:
+        data["scaling"] = codesign.scaling_table(scenario, processor)
+    if args.json:
+        report.write_json(Path(args.json), data)
+    for line in report.budget_lines(data):
+        print(line)
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code (0 ok, 2 bad input)."""
     try:
         args = _parser().parse_args(argv)
-        handler = {"run": _cmd_run, "sweep": _cmd_sweep}[args.command]
+        handler = {"run": _cmd_run, "sweep": _cmd_sweep, "budget": _cmd_budget}[args.command]
         return handler(args)
     except ScenarioError as exc:
         print(f"dnpqc: error: {exc}", file=sys.stderr)

@@ -5,9 +5,11 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from .codesign import compare_processors, program_budget
 from .engines import simulate
 from .engines.circuit import Program, compile_program
 from .model import effective_perp_hz, nuclear_frequency_hz
+from .processor import processor_for_spec
 from .protocols import expected_resonances
 from .report import format_value
 from .results import SweepResult, best_common, max_difference, peaks, saturation
@@ -21,6 +23,8 @@ class RunOutcome:
     scenario: Scenario
     results: dict[str, SweepResult]
     program: Program
+    budget: dict[str, object] | None = None
+    compare: list[dict[str, object]] | None = None
 
     @property
     def reference(self) -> SweepResult:
@@ -90,6 +94,10 @@ class RunOutcome:
         }
         if "exact" in self.results and "trotter" in self.results:
             out["trotter_error"] = max_difference(self.results["exact"], self.results["trotter"])
+        if self.budget is not None:
+            out["budget"] = self.budget
+        if self.compare:
+            out["compare"] = self.compare
         return out
 
     def summary_lines(self) -> list[str]:
@@ -123,6 +131,13 @@ class RunOutcome:
         if "exact" in self.results and "trotter" in self.results:
             err = max_difference(self.results["exact"], self.results["trotter"])
             lines.append(f"  Trotter error (max |P_trotter - P_exact|): {err:.2e}")
+        if self.budget is not None:
+            per, total = self.budget["per_cycle"], self.budget["total"]
+            lines.append(
+                f"  on {self.budget['processor']['name']}: {per['two_qubit']:.0f} 2q gates and "
+                f"{per['swaps']:.0f} SWAPs per cycle, {total['duration_s'] * 1e6:.4g} µs in all, "
+                f"success estimate {total['success_estimate']:.3g}"
+            )
         return lines
 
 
@@ -137,4 +152,10 @@ def run_scenario(
     for engine in engines:
         tick = (lambda e=engine: on_point(e)) if on_point else None
         results[engine] = simulate(scenario, engine, on_point=tick)
-    return RunOutcome(scenario, results, compile_program(scenario))
+    budget = compare = None
+    if scenario.processor is not None:
+        budget = program_budget(scenario, scenario.processor)
+        others = [processor_for_spec(s, scenario.processor) for s in scenario.processor.compare]
+        if others:
+            compare = compare_processors(scenario, [scenario.processor, *others])
+    return RunOutcome(scenario, results, compile_program(scenario), budget, compare)

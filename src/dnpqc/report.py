@@ -182,3 +182,123 @@ def comparison_figure(results: list[SweepResult], cycle: int = -1):
     ax.set_title("Engines compared")
     fig.tight_layout()
     return fig
+
+
+_BUDGET_ROWS = (
+    ("1q gates", "one_qubit", "{:.0f}"),
+    ("virtual Z", "virtual_z", "{:.0f}"),
+    ("2q gates", "two_qubit", "{:.0f}"),
+    ("SWAPs", "swaps", "{:.0f}"),
+    ("resets", "resets", "{:.0f}"),
+    ("measurements", "measurements", "{:.0f}"),
+    ("depth", "depth", "{:.0f}"),
+    ("2q depth", "two_qubit_depth", "{:.0f}"),
+    ("duration [µs]", "duration_s", "{:.5g}"),
+    ("success estimate", "success_estimate", "{:.3g}"),
+)
+
+
+def _table(header: list[str], rows: list[list[str]]) -> list[str]:
+    widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
+    fmt = "  ".join(f"{{:<{widths[0]}}}" if i == 0 else f"{{:>{w}}}" for i, w in enumerate(widths))
+    return [fmt.format(*header), *(fmt.format(*r) for r in rows)]
+
+
+def _cell(key: str, value: float, pattern: str) -> str:
+    return pattern.format(value * 1e6 if key == "duration_s" else value)
+
+
+def budget_lines(data: dict) -> list[str]:
+    """The terminal view of `dnpqc budget`: one table, plus the optional co-design views."""
+    proc = data["processor"]
+    q = data["qubits"]
+    lines = [
+        f"processor {proc['name']} ({proc['num_qubits']} qubits, {proc['native_gates']}); "
+        f"layout: {data['layout']['method']} {data['layout']['two_qubit_by_method']}",
+        f"NV on qubit {q['nv']}, nuclei on {q['nuclei_initial']} (after the program: "
+        f"{q['nuclei_final']})",
+    ]
+    rows = [
+        [label] + [_cell(key, data[part][key], pat) for part in ("per_cycle", "total")]
+        for label, key, pat in _BUDGET_ROWS
+    ]
+    lines += _table(["", "per cycle", "total"], rows)
+    te = data["trotter_error"]
+    lines.append(f"Trotter error: {te['value']:.3g} ({te['method']}, {te['points']} points)")
+    if "compare" in data:
+        header = [
+            "processor",
+            "layout",
+            "2q/cycle",
+            "SWAPs/cycle",
+            "depth/cycle",
+            "µs/cycle",
+            "success",
+        ]
+        rows = [
+            [
+                r["processor"],
+                r["layout"],
+                f"{r['per_cycle']['two_qubit']:.0f}",
+                f"{r['per_cycle']['swaps']:.0f}",
+                f"{r['per_cycle']['depth']:.0f}",
+                f"{r['per_cycle']['duration_s'] * 1e6:.4g}",
+                f"{r['total']['success_estimate']:.3g}",
+            ]
+            for r in data["compare"]
+        ]
+        lines += ["", *_table(header, rows)]
+    if "steps_advice" in data:
+        adv = data["steps_advice"]
+        rows = [
+            [
+                str(r["steps"]),
+                f"{r['trotter_error']:.3g}",
+                f"{r['two_qubit_per_cycle']:.0f}",
+                f"{r['success_estimate']:.3g}",
+                f"{r['total_error']:.3g}",
+            ]
+            for r in adv["ladder"]
+        ]
+        lines += ["", *_table(["steps", "Trotter err", "2q/cycle", "success", "total err"], rows)]
+        best = adv["smallest"]
+        if best:
+            lines.append(
+                f"fewest steps with Trotter error <= {adv['target_error']:g}: {best['steps']} "
+                f"({best['two_qubit_per_cycle']:.0f} 2q gates per cycle, success "
+                f"{best['success_estimate']:.3g})"
+            )
+        else:
+            lines.append(f"no step count up to the ladder's end reaches {adv['target_error']:g}")
+        lines.append(f"optimum (least Trotter + hardware error): {adv['optimum']['steps']} steps")
+    if "scaling" in data:
+        sc = data["scaling"]
+        header = ["nuclei", *sc["two_qubit_per_cycle"]]
+        rows = [
+            [str(n)] + [f"{sc['two_qubit_per_cycle'][k][i]:.0f}" for k in header[1:]]
+            for i, n in enumerate(sc["nuclei"])
+        ]
+        rows.append(["growth n^k"] + [f"{sc['growth_exponent'][k]:.2f}" for k in header[1:]])
+        rows.append(["+1 nucleus"] + [f"{sc['per_added_nucleus'][k]:.0f}" for k in header[1:]])
+        lines += [
+            "",
+            f"2q gates per cycle ({sc['steps_per_cycle']} steps) vs nuclei:",
+            *_table(header, rows),
+        ]
+    return lines
+
+
+def budget_figure(rows: list[dict]):
+    """Bars of two-qubit gates and SWAPs per cycle on each processor."""
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(7, 3.8))
+    names = [r["processor"] for r in rows]
+    x = np.arange(len(rows))
+    ax.bar(x - 0.2, [r["per_cycle"]["two_qubit"] for r in rows], 0.4, label="2q gates")
+    ax.bar(x + 0.2, [r["per_cycle"]["swaps"] for r in rows], 0.4, label="SWAPs")
+    ax.set_xticks(x, names, rotation=20)
+    ax.set_ylabel("per cycle")
+    ax.set_title("The program on each processor")
+    ax.legend()
+    fig.tight_layout()
+    return fig

@@ -18,7 +18,16 @@ import numpy as np
 
 from .errors import ScenarioError
 from .lattice import dipolar_from_positions, hyperfine_from_position, random_cluster_nm
+from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED
 from .model import Coupling, Nucleus, SpinSystem
+from .processor import (
+    NATIVE_GATE_SETS,
+    PRESETS,
+    Processor,
+    check_fits,
+    make_processor,
+    processor_for_spec,
+)
 from .protocols import (
     AXIS_PHASES_RAD,
     NAMED_BLOCKS,
@@ -53,6 +62,14 @@ class TrotterSettings:
 
 
 @dataclass(frozen=True)
+class MappingSettings:
+    """Transpiler settings for mapping onto a processor."""
+
+    optimization_level: int = DEFAULT_OPTIMIZATION_LEVEL
+    seed: int = DEFAULT_SEED
+
+
+@dataclass(frozen=True)
 class Scenario:
     """Everything one run needs: the spins, the drive, the sweep, the cycles, the compiler."""
 
@@ -63,6 +80,8 @@ class Scenario:
     cycles: int
     trotter: TrotterSettings
     digest: str = ""
+    processor: Processor | None = None
+    mapping: MappingSettings = MappingSettings()
 
     def schedule(self) -> CycleSchedule:
         """One cycle's segments with the swept quantity as the variable."""
@@ -173,7 +192,7 @@ def _check_number(value: Any, key: str, *, minimum: float | None, strict: bool) 
     return value
 
 
-_TOP_KEYS = ("name", "description", "spins", "drive", "sweep", "cycle", "trotter")
+_TOP_KEYS = ("name", "description", "spins", "drive", "sweep", "cycle", "trotter", "processor")
 
 
 def load_scenario(path: str | Path) -> Scenario:
@@ -227,9 +246,12 @@ def scenario_from_dict(
     if math.isnan(getattr(protocol, sweep.parameter)):
         # a swept key left out of [drive]/[cycle]: record the first grid value
         protocol = replace(protocol, **{sweep.parameter: sweep.values[0]})
+    processor, mapping = _read_processor(top.table("processor"))
+    if processor is not None:
+        check_fits(processor, system.num_qubits)
     if not digest:
         digest = _digest(repr(sorted(data.items())))
-    return Scenario(name, system, protocol, sweep, count, trotter, digest)
+    return Scenario(name, system, protocol, sweep, count, trotter, digest, processor, mapping)
 
 
 def _required_table(parent: _Table, name: str) -> _Table:
@@ -435,6 +457,80 @@ def _read_trotter(t: _Table) -> TrotterSettings:
         raise ScenarioError(f"`trotter.order` must be 1 or 2, got {settings.order}")
     t.finish()
     return settings
+
+
+_PROCESSOR_NUMBERS = (
+    "time_1q_s",
+    "time_2q_s",
+    "error_1q",
+    "error_2q",
+    "time_reset_s",
+    "time_measure_s",
+    "error_readout",
+    "error_reset",
+)
+
+
+def _read_processor(t: _Table | None) -> tuple[Processor | None, MappingSettings]:
+    """The `[processor]` table: topology or edges (or a preset), figures, mapping settings."""
+    if t is None:
+        return None, MappingSettings()
+    settings: dict[str, Any] = {}
+    if t.has("preset"):
+        settings["preset"] = t.string("preset", choices=tuple(PRESETS))
+    if t.has("topology") and t.has("edges"):
+        raise ScenarioError("`processor` takes `topology` or `edges`, not both")
+    if t.has("topology"):
+        settings["topology"] = t.string("topology")
+    if t.has("edges"):
+        settings["edges"] = _read_edges(t.raw("edges"), t.key("edges"))
+    if t.has("native_gates"):
+        settings["native_gates"] = t.string("native_gates", choices=tuple(NATIVE_GATE_SETS))
+    for key in _PROCESSOR_NUMBERS:
+        if t.has(key):
+            settings[key] = t.number(key, minimum=0.0)
+    for key in ("t1_s", "t2_s"):
+        if t.has(key):
+            value = t.raw(key)
+            items = value if isinstance(value, list) else [value]
+            t.used.add(key)
+            settings[key] = [_check_number(v, t.key(key), minimum=0.0, strict=True) for v in items]
+            if not isinstance(value, list):
+                settings[key] = settings[key][0]
+    compare = t.raw("compare") if t.has("compare") else []
+    if not (isinstance(compare, list) and all(isinstance(c, str) for c in compare)):
+        raise ScenarioError(
+            f"`processor.compare` must be a list of topology strings, got {compare!r}"
+        )
+    level = t.integer("optimization_level", DEFAULT_OPTIMIZATION_LEVEL, minimum=0)
+    if level > 3:
+        raise ScenarioError(f"`processor.optimization_level` must be 0..3, got {level}")
+    seed = t.integer("seed", DEFAULT_SEED, minimum=0)
+    t.finish()
+    processor = make_processor(settings)
+    if compare:
+        processor = replace(processor, compare=tuple(compare))
+        for spec in compare:
+            processor_for_spec(spec, processor)  # validate now, not halfway through a run
+    return processor, MappingSettings(level, seed)
+
+
+def _read_edges(value: Any, key: str) -> list[tuple[int, int]]:
+    ok = (
+        isinstance(value, list)
+        and value
+        and all(
+            isinstance(e, list)
+            and len(e) == 2
+            and all(isinstance(q, int) and not isinstance(q, bool) and q >= 0 for q in e)
+            for e in value
+        )
+    )
+    if not ok:
+        raise ScenarioError(
+            f"`{key}` must be a list of qubit pairs [[0, 1], [1, 2], ...], got {value!r}"
+        )
+    return [tuple(e) for e in value]
 
 
 def _read_sweep(t: _Table | None, protocol: Protocol, swept: str) -> Sweep:

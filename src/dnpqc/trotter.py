@@ -259,16 +259,19 @@ def build_circuit(plan: ProgramPlan, *, save: bool = True) -> QuantumCircuit:
 
     With `save`, the probabilities of the nuclear qubits (ordered 1..n) are saved after each
     cycle under `cycle_label(c)` (Aer `save_probabilities`, which is safe after transpiling).
+    Full-width barriers close the preparation and every cycle, so each cycle is a segment that
+    stays in place through transpiling and scheduling.
     """
     parameter = Parameter(plan.parameter_name)
     circuit = QuantumCircuit(plan.num_qubits, name="dnp_program")
     nuclei = list(range(1, plan.num_qubits))
     prepare_mixed_nuclei(circuit, 0, nuclei)
+    circuit.barrier()
     body = cycle_circuit(plan, parameter)
     for c in range(1, plan.cycles + 1):
         circuit.reset(0)
         circuit.compose(body, inplace=True)
+        circuit.barrier()
         if save:
-            circuit.barrier()
             circuit.append(SaveProbabilities(len(nuclei), label=cycle_label(c)), nuclei)
     return circuit

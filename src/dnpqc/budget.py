@@ -1,0 +1,226 @@
+"""Gate budget of a mapped program: counts, depth, ASAP duration, idle time, success estimate.
+
+The budget is that of the hardware program: the mapped circuit without the simulator's save
+instructions, plus a final readout of every nuclear qubit.
+
+Schedule: as soon as possible, each instruction starting when all its qubits are free, with the
+processor's durations (virtual RZ takes 0); full-width barriers synchronise all qubits and close
+the preparation and each cycle. A qubit is idle whenever the segment runs and it is not busy.
+
+Success estimate (a lower-bound style figure, not a simulation):
+
+    S = Π_instructions (1 - ε_i) · Π_qubits exp(-t_idle,q / T1_q) · exp(-t_idle,q / T2_q)
+
+with ε the average infidelity of each gate, reset and readout. Gate errors are taken to include
+decoherence during the gate, so only idle time is charged with T1 and T2. Charging both T1 and T2
+counts the T1 part of T2 twice, so S errs on the pessimistic side.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import networkx as nx
+from qiskit import QuantumCircuit
+
+from .mapping import MappedProgram
+from .processor import VIRTUAL_GATES, Processor
+
+SKIPPED = frozenset({"barrier", "save_probabilities", "save_density_matrix", "delay"})
+
+
+@dataclass(frozen=True)
+class SegmentCost:
+    """Cost of one segment (preparation, one cycle, or the final readout)."""
+
+    one_qubit: int
+    virtual_z: int
+    two_qubit: int
+    swaps: int
+    resets: int
+    measurements: int
+    depth: int
+    two_qubit_depth: int
+    duration_s: float
+    idle_s: dict[int, float]
+    success_estimate: float
+
+    def to_dict(self) -> dict[str, object]:
+        return {
+            "one_qubit": self.one_qubit,
+            "virtual_z": self.virtual_z,
+            "two_qubit": self.two_qubit,
+            "swaps": self.swaps,
+            "resets": self.resets,
+            "measurements": self.measurements,
+            "depth": self.depth,
+            "two_qubit_depth": self.two_qubit_depth,
+            "duration_s": self.duration_s,
+            "idle_s": {str(q): t for q, t in sorted(self.idle_s.items())},
+            "success_estimate": self.success_estimate,
+        }
+
+
+def split_segments(circuit: QuantumCircuit) -> list[list]:
+    """Instructions between full-width barriers (saves, delays and barriers dropped)."""
+    segments: list[list] = [[]]
+    for inst in circuit.data:
+        name = inst.operation.name
+        if name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
+            segments.append([])
+        elif name not in SKIPPED:
+            segments[-1].append(inst)
+    return segments
+
+
+def segment_cost(
+    instructions: list,
+    circuit: QuantumCircuit,
+    region: tuple[int, ...],
+    processor: Processor,
+    swaps: int = 0,
+    idle_qubits: list[int] | None = None,
+) -> SegmentCost:
+    """Counts, depths, ASAP duration, idle time and success estimate of one segment.
+
+    Idle time is charged on `idle_qubits` (default: all qubits of the region).
+    """
+    qubits = [region[i] for i in range(circuit.num_qubits)]
+    free_at = dict.fromkeys(qubits, 0.0)
+    busy = dict.fromkeys(qubits, 0.0)
+    depth = dict.fromkeys(qubits, 0)
+    depth2 = dict.fromkeys(qubits, 0)
+    counts = {"one": 0, "virtual": 0, "two": 0, "reset": 0, "measure": 0}
+    log_success = 0.0
+    for inst in instructions:
+        name = inst.operation.name
+        phys = [region[circuit.find_bit(q).index] for q in inst.qubits]
+        duration = processor.gate_duration_s(name)
+        start = max(free_at[q] for q in phys)
+        d = max(depth[q] for q in phys) + 1
+        d2 = max(depth2[q] for q in phys) + (len(phys) == 2)
+        for q in phys:
+            free_at[q] = start + duration
+            busy[q] += duration
+            depth[q], depth2[q] = d, d2
+        if name in ("reset", "measure"):
+            kind = name
+        elif len(phys) == 2:
+            kind = "two"
+        else:
+            kind = "virtual" if name in VIRTUAL_GATES else "one"
+        counts[kind] += 1
+        log_success += math.log1p(-processor.gate_error(name))
+    span = max(free_at.values(), default=0.0)
+    idle = {q: span - busy[q] for q in (qubits if idle_qubits is None else idle_qubits)}
+    for q, t in idle.items():
+        log_success -= t / processor.t1_s[q] + t / processor.t2_s[q]
+    return SegmentCost(
+        one_qubit=counts["one"],
+        virtual_z=counts["virtual"],
+        two_qubit=counts["two"],
+        swaps=swaps,
+        resets=counts["reset"],
+        measurements=counts["measure"],
+        depth=max(depth.values(), default=0),
+        two_qubit_depth=max(depth2.values(), default=0),
+        duration_s=span,
+        idle_s=idle,
+        success_estimate=math.exp(log_success),
+    )
+
+
+def readout_segment(mapped: MappedProgram) -> list:
+    """The final measurement of every nuclear qubit (on its final physical qubit)."""
+    circuit = QuantumCircuit(mapped.circuit.num_qubits, mapped.circuit.num_qubits - 1)
+    index = {p: i for i, p in enumerate(mapped.region)}
+    for clbit, phys in enumerate(mapped.final[1:]):
+        circuit.measure(index[phys], clbit)
+    return list(circuit.data), circuit
+
+
+def _sum(costs: list[SegmentCost]) -> SegmentCost:
+    idle: dict[int, float] = {}
+    for c in costs:
+        for q, t in c.idle_s.items():
+            idle[q] = idle.get(q, 0.0) + t
+    return SegmentCost(
+        one_qubit=sum(c.one_qubit for c in costs),
+        virtual_z=sum(c.virtual_z for c in costs),
+        two_qubit=sum(c.two_qubit for c in costs),
+        swaps=sum(c.swaps for c in costs),
+        resets=sum(c.resets for c in costs),
+        measurements=sum(c.measurements for c in costs),
+        depth=sum(c.depth for c in costs),
+        two_qubit_depth=sum(c.two_qubit_depth for c in costs),
+        duration_s=sum(c.duration_s for c in costs),
+        idle_s=idle,
+        success_estimate=math.prod(c.success_estimate for c in costs),
+    )
+
+
+def _mean(costs: list[SegmentCost]) -> dict[str, object]:
+    n = len(costs)
+    total = _sum(costs)
+    return {
+        "one_qubit": total.one_qubit / n,
+        "virtual_z": total.virtual_z / n,
+        "two_qubit": total.two_qubit / n,
+        "swaps": total.swaps / n,
+        "resets": total.resets / n,
+        "measurements": total.measurements / n,
+        "depth": total.depth / n,
+        "two_qubit_depth": total.two_qubit_depth / n,
+        "duration_s": total.duration_s / n,
+        "idle_s": {str(q): t / n for q, t in sorted(total.idle_s.items())},
+        "success_estimate": total.success_estimate ** (1 / n),
+    }
+
+
+def gate_budget(mapped: MappedProgram) -> dict[str, object]:
+    """The budget as JSON-ready data: `per_cycle` (mean of the cycles), `cycles`, `total`."""
+    proc, circ, region = mapped.processor, mapped.circuit, mapped.region
+    segments = split_segments(circ)
+    swaps = list(mapped.swaps_per_segment) + [0] * len(segments)
+    costs = [segment_cost(seg, circ, region, proc, swaps[i]) for i, seg in enumerate(segments)]
+    readout_insts, readout_circ = readout_segment(mapped)
+    readout = segment_cost(
+        readout_insts, readout_circ, region, proc, idle_qubits=list(mapped.final[1:])
+    )
+    preparation, cycles = costs[0], [c for c in costs[1:] if c.duration_s > 0 or c.one_qubit]
+    total = _sum([preparation, *cycles, readout])
+    return {
+        "processor": processor_summary(proc),
+        "qubits": {
+            "region": list(region),
+            "nv": mapped.initial[0],
+            "nuclei_initial": list(mapped.initial[1:]),
+            "nv_final": mapped.final[0],
+            "nuclei_final": list(mapped.final[1:]),
+        },
+        "layout": {"method": mapped.layout_method, "two_qubit_by_method": mapped.candidates},
+        "preparation": preparation.to_dict(),
+        "per_cycle": _mean(cycles),
+        "cycles": [c.to_dict() for c in cycles],
+        "readout": readout.to_dict(),
+        "total": total.to_dict(),
+    }
+
+
+def processor_summary(proc: Processor) -> dict[str, object]:
+    graph = proc.graph()
+    return {
+        "name": proc.name,
+        "num_qubits": proc.num_qubits,
+        "edges": graph.number_of_edges(),
+        "max_degree": max(dict(graph.degree).values(), default=0),
+        "diameter": nx.diameter(graph) if graph.number_of_nodes() > 1 else 0,
+        "native_gates": proc.native_gates,
+        "time_1q_s": proc.time_1q_s,
+        "time_2q_s": proc.time_2q_s,
+        "error_1q": proc.error_1q,
+        "error_2q": proc.error_2q,
+        "t1_s": list(proc.t1_s),
+        "t2_s": list(proc.t2_s),
+    }
