@@ -3,7 +3,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test lint bench clean
+.PHONY: demo test lint bench clean circuits
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -18,6 +18,14 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
+
+DEMO_SCENARIO := src/dnpqc/scenarios/demo.toml
+CIRCUIT_PROCESSORS := transmon-grid-9 transmon-heavy-hex-3 ion-chain-12
+
+circuits: $(STAMP)
+	@for p in $(CIRCUIT_PROCESSORS); do \
+	  $(BIN)/dnpqc compile $(DEMO_SCENARIO) --processor $$p -o circuits/demo-$$p.qasm || exit 1; \
+	done
 
 lint: $(STAMP)
 	$(BIN)/ruff check src tests benchmarks

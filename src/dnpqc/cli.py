@@ -1,4 +1,4 @@
-"""Command line: `dnpqc run`, `sweep`, `budget`. User errors: one line on stderr, exit code 2."""
+"""Command line: `dnpqc run`, `sweep`, `budget`, `compile`. User errors: one line, exit code 2."""
 
 from __future__ import annotations
 
@@ -9,12 +9,15 @@ from pathlib import Path
 
 from tqdm import tqdm
 
-from . import codesign, report
+from . import codesign, qasm, report
+from .budget import gate_budget
 from .engines import ENGINES, simulate
+from .engines.circuit import compile_program
 from .errors import ScenarioError
 from .job import RunOutcome, run_scenario
+from .mapping import map_program
 from .processor import Processor, make_processor, processor_for_spec
-from .scenario import Scenario, demo_scenario, load_scenario
+from .scenario import Scenario, check_point, demo_scenario, load_scenario
 
 EXIT_USAGE = 2
 
@@ -58,6 +61,23 @@ def _parser() -> argparse.ArgumentParser:
         "--scaling",
         action="store_true",
         help="2q gates per cycle vs number of nuclei (1..12) on each graph kind",
+    )
+    comp = sub.add_parser("compile", help="OpenQASM 3 of the mapped program for hardware")
+    comp.add_argument("scenario", help="scenario TOML file")
+    comp.add_argument("--processor", default=None, help="topology or preset (as for budget)")
+    comp.add_argument(
+        "-o", "--output", default=None, help="write the program here (default: stdout)"
+    )
+    comp.add_argument(
+        "--bind",
+        type=float,
+        default=None,
+        help="a value of the swept quantity: write a fully numeric program",
+    )
+    comp.add_argument(
+        "--measure-each-cycle",
+        action="store_true",
+        help="measure the nuclei after every cycle into registers cycle_<c>",
     )
     sweep = sub.add_parser("sweep", help="one engine over the sweep, JSON out")
     sweep.add_argument("scenario", help="scenario TOML file")
@@ -169,11 +189,52 @@ def _cmd_budget(args) -> int:
     return 0
 
 
+def compile_text(
+    scenario: Scenario,
+    processor: Processor,
+    *,
+    bind: float | None = None,
+    measure_each_cycle: bool = False,
+) -> str:
+    """The OpenQASM 3 text of the scenario's program mapped onto `processor`."""
+    if bind is not None:
+        check_point(scenario, bind)
+    program = compile_program(scenario, save=True)
+    mapped = map_program(
+        program.circuit,
+        scenario.system,
+        processor,
+        optimization_level=scenario.mapping.optimization_level,
+        seed=scenario.mapping.seed,
+    )
+    hardware = qasm.hardware_program(mapped, measure_each_cycle=measure_each_cycle, bind=bind)
+    return qasm.dumps(hardware, qasm.header_lines(scenario, mapped, gate_budget(mapped), bind))
+
+
+def _cmd_compile(args) -> int:
+    scenario = load_scenario(args.scenario)
+    processor = scenario_processor(scenario, args.processor)
+    text = compile_text(
+        scenario, processor, bind=args.bind, measure_each_cycle=args.measure_each_cycle
+    )
+    if args.output:
+        report.write_text(Path(args.output), text)
+        print(f"program: {args.output}")
+    else:
+        sys.stdout.write(text)
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code (0 ok, 2 bad input)."""
     try:
         args = _parser().parse_args(argv)
-        handler = {"run": _cmd_run, "sweep": _cmd_sweep, "budget": _cmd_budget}[args.command]
+        handler = {
+            "run": _cmd_run,
+            "sweep": _cmd_sweep,
+            "budget": _cmd_budget,
+            "compile": _cmd_compile,
+        }[args.command]
         return handler(args)
     except ScenarioError as exc:
         print(f"dnpqc: error: {exc}", file=sys.stderr)

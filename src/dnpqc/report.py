@@ -40,6 +40,7 @@ def _write_atomic(path: Path, write: Callable[[io.IOBase], None], *, binary: boo
     try:
         with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
             write(fh)
+        os.chmod(tmp, 0o644)  # mkstemp creates 0600; results are meant to be shared
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)

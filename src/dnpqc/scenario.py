@@ -546,6 +546,15 @@ def _read_sweep(t: _Table | None, protocol: Protocol, swept: str) -> Sweep:
     return Sweep(swept, tuple(float(v) for v in np.linspace(start, stop, points)))
 
 
+def check_point(scenario: Scenario, value: float, key: str = "--bind") -> float:
+    """Validate one value of the swept quantity (e.g. for `--bind`); returns it."""
+    try:
+        _check_sweep_values(scenario.protocol, Sweep(scenario.sweep.parameter, (value,)))
+    except ScenarioError as exc:
+        raise ScenarioError(f"`{key}` {value:g}: {exc}") from None
+    return value
+
+
 def _check_sweep_values(protocol: Protocol, sweep: Sweep) -> None:
     values = np.asarray(sweep.values)
     name = sweep.parameter
