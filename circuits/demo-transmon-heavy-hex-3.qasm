@@ -1,4 +1,4 @@
-// dnpqc program for scenario 'demo' (content hash ec6829dc8bde58a5):
+// dnpqc program for scenario 'demo' (content hash 5ec83e08992b129f):
 //   spin-lock, 4 nuclei, 6 cycles, 150 Trotter steps of order 2.
 // Model: H/h in Hz, U = exp(-2πi·H·t); NV qubit {|0> = m_s 0, |1> = m_s -1}, nuclei
 //   |0> = spin up along B0; the nuclei start maximally mixed (H, CX to the NV, NV reset).

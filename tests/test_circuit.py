@@ -6,7 +6,6 @@ import numpy as np
 import pytest
 import scipy.linalg
 from conftest import one_nucleus, pulsed_text
-from qiskit.circuit import Parameter
 from qiskit.quantum_info import Operator
 
 from dnpqc import compile_program, parse_scenario, simulate
@@ -14,7 +13,7 @@ from dnpqc.engines.circuit import density_matrix_simulator, run_program
 from dnpqc.engines.exact import _Propagators, cycle_unitary
 from dnpqc.model import hamiltonian
 from dnpqc.results import max_difference
-from dnpqc.trotter import cycle_circuit
+from dnpqc.trotter import cycle_circuit, program_parameters
 
 
 def _with_steps(sc, steps, order):
@@ -25,8 +24,9 @@ def _propagator_error(sc, steps, order, x):
     """‖U_trotter - U_exact‖₂ of one cycle at swept value x, up to a global phase."""
     sc = _with_steps(sc, steps, order)
     plan = compile_program(sc).plan
-    param = Parameter(plan.parameter_name)
-    u = Operator(cycle_circuit(plan, param).assign_parameters({param: x})).data
+    params = program_parameters(plan)
+    circuit = cycle_circuit(plan, params)
+    u = Operator(circuit.assign_parameters({params[sc.sweep.parameter]: x})).data
     exact = cycle_unitary(_Propagators(sc.system), sc.schedule(), x)
     phase = np.vdot(exact.ravel(), u.ravel())
     return np.linalg.norm(u - phase / abs(phase) * exact, 2)

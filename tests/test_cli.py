@@ -165,3 +165,27 @@ def test_run_with_processor_writes_budget(tmp_path):
     assert report["budget"]["processor"]["name"] == "line:3"
     assert [r["processor"] for r in report["compare"]] == ["line:3", "full:3"]
     assert (out / "budget.png").stat().st_size > 0
+
+
+def test_run_with_processor_compares_noisy_to_exact(tmp_path, capsys):
+    path = tmp_path / "n.toml"
+    path.write_text(
+        SMALL.replace("steps = 60", "steps = 12") + '[processor]\ntopology = "line:3"\n'
+    )
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out)]) == 0
+    report = json.loads((out / "report.json").read_text())
+    assert set(report["engines"]) == {"exact", "trotter", "noisy"}
+    noisy = next(c for c in report["comparison"] if c["engine"] == "noisy")
+    assert set(noisy["per_nucleus"]["C1"]) == {"peak", "shift", "contrast_ratio", "found"}
+    assert "peaks within the sweep resolution" in noisy["verdict"]
+    assert noisy["verdict"] in capsys.readouterr().out
+
+
+def test_sweep_noisy_engine(small, tmp_path):
+    path = tmp_path / "noisy.json"
+    text = small.read_text().replace("steps = 60", "steps = 6")
+    small.write_text(text + '[noise]\nmethod = "trajectories"\ntrajectories = 20\n')
+    assert main(["sweep", str(small), "--engine", "noisy", "--json", str(path)]) == 0
+    data = json.loads(path.read_text())
+    assert data["engine"] == "noisy" and len(data["stderr"]) == 8

@@ -39,3 +39,11 @@ def test_geometric_buildup_fit():
     assert p_sat == pytest.approx(0.8, rel=1e-3) and k == pytest.approx(0.3, abs=1e-3)
     # cycles to 90 %: smallest c with 1 - 0.7^c >= 0.9 → c = ceil(ln 0.1 / ln 0.7) = 7
     assert cycles_to_fraction(0.3) == math.ceil(math.log(0.1) / math.log(0.7)) == 7
+
+
+def test_buildup_fit_respects_the_physical_bound():
+    # a build-up still linear over the run cannot saturate above |P| = 1
+    curve = 0.01 * np.arange(1, 7)
+    p_sat, k = fit_buildup(curve)
+    assert p_sat <= 1.0
+    assert p_sat * (1 - (1 - k) ** 6) == pytest.approx(0.06, rel=0.05)

@@ -8,11 +8,11 @@ import pytest
 import scipy.linalg
 from conftest import one_nucleus
 from qiskit import QuantumCircuit
-from qiskit.circuit import Parameter
 from qiskit.quantum_info import Operator, SparsePauliOp
 from qiskit_aer import AerSimulator
 
 from dnpqc import compile_program
+from dnpqc.expr import Poly
 from dnpqc.protocols import Linear
 from dnpqc.trotter import (
     Layer,
@@ -42,7 +42,7 @@ def test_rotation_gates_equal_pauli_exponentials(pauli, qubits):
     # R_P(θ) = exp(-iθ/2·P) against scipy.linalg.expm of the dense Pauli (independent library)
     theta = 0.731
     circuit = QuantumCircuit(3)
-    _append_rotation(circuit, PauliRotation(pauli, qubits, Linear(theta)), Parameter("x"))
+    _append_rotation(circuit, PauliRotation(pauli, qubits, Poly.constant(theta)), {})
     label = ["I"] * 3
     for p, q in zip(pauli, qubits, strict=True):
         label[2 - q] = p
@@ -78,22 +78,22 @@ def test_two_qubit_gate_count_matches_term_count(three_nuclei):
 
 
 def test_order_two_merges_adjacent_layers():
-    a = Layer((PauliRotation("Z", (0,), Linear(0.1, 1.0)),))
-    b = Layer((PauliRotation("Z", (0,), Linear(0.2, 2.0)),))
-    c = Layer((PauliRotation("X", (0,), Linear(0.3)),))
+    a = Layer((PauliRotation("Z", (0,), Poly.from_linear(Linear(0.1, 1.0), "x")),))
+    b = Layer((PauliRotation("Z", (0,), Poly.from_linear(Linear(0.2, 2.0), "x")),))
+    c = Layer((PauliRotation("X", (0,), Poly.constant(0.3)),))
     merged = merge_layers([a, b, c])
     assert len(merged) == 2
-    assert merged[0].rotations[0].angle == Linear(0.1 + 0.2, 3.0)
+    assert merged[0].rotations[0].angle == Poly.from_linear(Linear(0.1 + 0.2, 3.0), "x")
 
 
 def test_terms_split_into_offset_and_slope():
     # rabi_hz swept: the X_0 coefficient is Ω/2 → Linear(0, 0.5); nuclear terms are constant
     sc = one_nucleus(sweep='[sweep]\nparameter = "rabi_hz"\nstart = 1e5\nstop = 2e5\npoints = 2\n')
     seg = sc.schedule().block[0]
-    terms = pauli_terms(sc.system, seg)
-    assert terms[("X", (0,))] == Linear(0.0, 0.5)
-    assert terms[("ZX", (0, 1))] == Linear(20e3 / 4)
-    assert terms[("Z", (1,))].slope == 0.0
+    terms = pauli_terms(sc.system, seg, "x")
+    assert terms[("X", (0,))] == Poly.variable("x", 0.5)
+    assert terms[("ZX", (0, 1))] == Poly.constant(20e3 / 4)
+    assert terms[("Z", (1,))].variables == set()
 
 
 def test_circuit_has_true_mid_circuit_resets(three_nuclei):
@@ -123,4 +123,4 @@ def test_angle_formula():
     sc = one_nucleus(steps=1, order=1)
     plan = compile_program(sc).plan
     rot = next(r for ly in plan.cycle.layers() for r in ly.rotations if r.pauli == "ZX")
-    assert rot.angle.offset == pytest.approx(4 * math.pi * (20e3 / 4) * 20e-6)
+    assert rot.angle.at({}) == pytest.approx(4 * math.pi * (20e3 / 4) * 20e-6)

@@ -74,6 +74,31 @@ def split_segments(circuit: QuantumCircuit) -> list[list]:
     return segments
 
 
+class AsapClock:
+    """As-soon-as-possible timing on a set of qubits (times in s).
+
+    An instruction starts when all its qubits are free; `place` and `sync` (a barrier) return
+    the idle gap each qubit waited before the start.
+    """
+
+    def __init__(self, qubits):
+        self.free_at = dict.fromkeys(qubits, 0.0)
+
+    def place(self, qubits, duration: float) -> tuple[float, dict[int, float]]:
+        start = max(self.free_at[q] for q in qubits)
+        gaps = {q: start - self.free_at[q] for q in qubits}
+        for q in qubits:
+            self.free_at[q] = start + duration
+        return start, gaps
+
+    def sync(self, qubits) -> dict[int, float]:
+        return self.place(qubits, 0.0)[1]
+
+    @property
+    def span(self) -> float:
+        return max(self.free_at.values(), default=0.0)
+
+
 def segment_cost(
     instructions: list,
     circuit: QuantumCircuit,
@@ -87,7 +112,7 @@ def segment_cost(
     Idle time is charged on `idle_qubits` (default: all qubits of the region).
     """
     qubits = [region[i] for i in range(circuit.num_qubits)]
-    free_at = dict.fromkeys(qubits, 0.0)
+    clock = AsapClock(qubits)
     busy = dict.fromkeys(qubits, 0.0)
     depth = dict.fromkeys(qubits, 0)
     depth2 = dict.fromkeys(qubits, 0)
@@ -97,11 +122,10 @@ def segment_cost(
         name = inst.operation.name
         phys = [region[circuit.find_bit(q).index] for q in inst.qubits]
         duration = processor.gate_duration_s(name)
-        start = max(free_at[q] for q in phys)
+        clock.place(phys, duration)
         d = max(depth[q] for q in phys) + 1
         d2 = max(depth2[q] for q in phys) + (len(phys) == 2)
         for q in phys:
-            free_at[q] = start + duration
             busy[q] += duration
             depth[q], depth2[q] = d, d2
         if name in ("reset", "measure"):
@@ -112,7 +136,7 @@ def segment_cost(
             kind = "virtual" if name in VIRTUAL_GATES else "one"
         counts[kind] += 1
         log_success += math.log1p(-processor.gate_error(name))
-    span = max(free_at.values(), default=0.0)
+    span = clock.span
     idle = {q: span - busy[q] for q in (qubits if idle_qubits is None else idle_qubits)}
     for q, t in idle.items():
         log_success -= t / processor.t1_s[q] + t / processor.t2_s[q]

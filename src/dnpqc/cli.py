@@ -17,6 +17,7 @@ from .errors import ScenarioError
 from .job import RunOutcome, run_scenario
 from .mapping import map_program
 from .processor import Processor, make_processor, processor_for_spec
+from .results import saturation
 from .scenario import Scenario, check_point, demo_scenario, load_scenario
 
 EXIT_USAGE = 2
@@ -37,7 +38,12 @@ def _parser() -> argparse.ArgumentParser:
     )
     run.add_argument("scenario", nargs="?", help="scenario TOML file (default: the bundled demo)")
     run.add_argument("--out", default=None, help="output folder (default: results/<scenario name>)")
-    run.add_argument("--engines", default="exact,trotter", help="comma-separated engines to run")
+    run.add_argument(
+        "--engines",
+        default=None,
+        help="comma-separated engines (default: exact,trotter, plus noisy when the "
+        "scenario has a [processor] table)",
+    )
     budget = sub.add_parser("budget", help="gate budget of the program on a processor")
     budget.add_argument("scenario", help="scenario TOML file")
     budget.add_argument(
@@ -106,7 +112,8 @@ def _engines(text: str) -> tuple[str, ...]:
 
 def _cmd_run(args) -> int:
     scenario = _scenario(args.scenario)
-    engines = _engines(args.engines)
+    default = "exact,trotter,noisy" if scenario.processor is not None else "exact,trotter"
+    engines = _engines(args.engines or default)
     out = Path(args.out) if args.out else Path("results") / scenario.name
     bars = {e: _progress(len(scenario.sweep.values), e) for e in engines}
     try:
@@ -124,12 +131,14 @@ def _cmd_run(args) -> int:
 def write_run(outcome: RunOutcome, out: Path) -> None:
     """All files of a run: figures are drawn first, then every file is written atomically."""
     ref = outcome.reference
-    ana = outcome.analysis(ref.engine)
+    point = outcome.analysis(ref.engine)["best_common"]["index"]
+    shown = [
+        r for name, r in outcome.results.items() if name != "trotter" or len(outcome.results) < 3
+    ]
+    fits = {r.engine: saturation(r, point)["per_nucleus"] for r in shown}
     figures = {
         "spectrum.png": report.spectrum_figure(ref, outcome.resonances()),
-        "buildup.png": report.buildup_figure(
-            ref, ana["best_common"]["index"], ana["saturation"]["per_nucleus"]
-        ),
+        "buildup.png": report.buildup_figure(shown, point, fits),
     }
     if len(outcome.results) > 1:
         figures["engines.png"] = report.comparison_figure(list(outcome.results.values()))

@@ -64,9 +64,9 @@ def commutator_bound(scenario: Scenario) -> float:
 
 
 def _segment_bound(scenario: Scenario, seg: Evolve, x: float) -> float:
-    terms = pauli_terms(scenario.system, seg)
+    terms = pauli_terms(scenario.system, seg, "x")
     keys = list(terms)
-    h = [2 * math.pi * abs(terms[k].at(x)) for k in keys]
+    h = [2 * math.pi * abs(terms[k].at({"x": x})) for k in keys]
     t, r = seg.duration_s.at(x), seg.steps
     if scenario.trotter.order == 1:
         total = sum(

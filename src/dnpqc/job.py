@@ -49,6 +49,51 @@ class RunOutcome:
             "saturation": saturation(res, common["index"]),
         }
 
+    def comparison(self, engine: str) -> dict[str, object]:
+        """`engine` against the exact reference: peak shifts, contrast, best value, verdict.
+
+        Peaks are taken on the baseline-subtracted signal |P - median| of both engines, so the
+        relaxation bias of a noisy processor does not count as a shift. A peak is found when it
+        lies within one grid step of the exact peak; contrast is the ratio of the peak heights.
+        """
+        ref, other = self.analysis(self.reference.engine), self.analysis(engine)
+        ref_peaks = peaks(self.reference, baseline=True)
+        other_peaks = peaks(self.results[engine], baseline=True)
+        values = self.scenario.sweep.values
+        step = abs(values[1] - values[0]) if len(values) > 1 else 0.0
+        per: dict[str, dict[str, float | bool]] = {}
+        for label, peak in ref_peaks.items():
+            mine = other_peaks[label]
+            shift = mine["value"] - peak["value"]
+            per[label] = {
+                "peak": mine["value"],
+                "shift": shift,
+                "contrast_ratio": mine["polarization"] / peak["polarization"]
+                if peak["polarization"] > 0
+                else float("nan"),
+                "found": abs(shift) <= step,
+            }
+        found = sum(p["found"] for p in per.values())
+        par = self.scenario.sweep.parameter
+        verdict = (
+            f"{engine}: {found} of {len(per)} peaks within the sweep resolution "
+            f"({format_value(par, step)}) of the exact peaks"
+        )
+        return {
+            "engine": engine,
+            "resolution": step,
+            "per_nucleus": per,
+            "best_common": other["best_common"]["value"],
+            "best_common_shift": other["best_common"]["value"] - ref["best_common"]["value"],
+            "saturation": other["saturation"]["mean_saturation"],
+            "all_found": found == len(per),
+            "verdict": verdict,
+        }
+
+    def comparisons(self) -> list[dict[str, object]]:
+        ref = self.reference.engine
+        return [self.comparison(e) for e in self.results if e != ref and ref == "exact"]
+
     def to_json(self) -> dict[str, object]:
         sc = self.scenario
         circuit = self.program.circuit
@@ -94,6 +139,8 @@ class RunOutcome:
         }
         if "exact" in self.results and "trotter" in self.results:
             out["trotter_error"] = max_difference(self.results["exact"], self.results["trotter"])
+        if self.comparisons():
+            out["comparison"] = self.comparisons()
         if self.budget is not None:
             out["budget"] = self.budget
         if self.compare:
@@ -131,6 +178,20 @@ class RunOutcome:
         if "exact" in self.results and "trotter" in self.results:
             err = max_difference(self.results["exact"], self.results["trotter"])
             lines.append(f"  Trotter error (max |P_trotter - P_exact|): {err:.2e}")
+        for comp in self.comparisons():
+            if comp["engine"] == "trotter":
+                continue
+            lines.append(f"  {comp['verdict']}")
+            for label, p in comp["per_nucleus"].items():
+                lines.append(
+                    f"  {label:>6}: {comp['engine']} peak {format_value(par, p['peak'])} "
+                    f"(shift {format_value(par, p['shift'])}), contrast x{p['contrast_ratio']:.2f}"
+                )
+            best = format_value(par, comp["best_common"])
+            lines.append(
+                f"  best common {par} ({comp['engine']}): {best}; "
+                f"saturation {comp['saturation']:.3f}"
+            )
         if self.budget is not None:
             per, total = self.budget["per_cycle"], self.budget["total"]
             lines.append(

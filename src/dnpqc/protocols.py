@@ -30,14 +30,6 @@ class Linear:
     def scaled(self, factor: float) -> Linear:
         return Linear(self.offset * factor, self.slope * factor)
 
-    def times(self, other: Linear) -> Linear:
-        """Product of two Linear values; it stays affine only if one of them is constant."""
-        if self.slope and other.slope:
-            raise ValueError("product of two swept quantities is not affine in the sweep")
-        return Linear(
-            self.offset * other.offset, self.offset * other.slope + self.slope * other.offset
-        )
-
     def __add__(self, other: Linear) -> Linear:
         return Linear(self.offset + other.offset, self.slope + other.slope)
 
@@ -174,6 +166,29 @@ def cycle_schedule(
         prepare=(),
         block=_pulsed_segments(protocol, tau, detuning, steps, pulse_steps),
         repeats=protocol.blocks,
+    )
+
+
+def perturbed(
+    schedule: CycleSchedule, *, drive_error: float, detuning_error_hz: float
+) -> CycleSchedule:
+    """The schedule with Ω → Ω·(1+s), ideal pulse angles θ → θ·(1+s), and Δ → Δ + δ."""
+
+    def one(seg: Segment) -> Segment:
+        if isinstance(seg, Pulse):
+            return Pulse(seg.angle_rad * (1 + drive_error), seg.phase_rad)
+        return Evolve(
+            seg.duration_s,
+            seg.rabi_hz.scaled(1 + drive_error),
+            seg.phase_rad,
+            seg.detuning_hz + Linear(detuning_error_hz),
+            seg.steps,
+        )
+
+    return CycleSchedule(
+        tuple(one(s) for s in schedule.prepare),
+        tuple(one(s) for s in schedule.block),
+        schedule.repeats,
     )
 
 

@@ -136,47 +136,63 @@ def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
     return fig
 
 
-def buildup_figure(result: SweepResult, point: int, fits: dict[str, dict[str, float]]):
-    """|P_j| vs cycle at sweep point `point`, with the fitted saturation curves dotted."""
+ENGINE_STYLES = {"exact": "-", "trotter": ":", "noisy": "--"}
+
+
+def buildup_figure(
+    results: list[SweepResult], point: int, fits: dict[str, dict[str, dict[str, float]]]
+):
+    """|P_j| vs cycle at sweep point `point` for each engine (exact solid, noisy dashed), with
+    the fitted saturation curves faint; `fits[engine][label]` as from `results.saturation`."""
     plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6, 4))
+    fig, ax = plt.subplots(figsize=(6.5, 4.2))
+    result = results[0]
     cycles = np.arange(1, result.cycles + 1)
     fine = np.linspace(0, result.cycles, 200)
-    for j, label in enumerate(result.nuclei):
-        (line,) = ax.plot(cycles, np.abs(result.polarization[point, :, j]), "o-", label=label)
-        fit = fits[label]
-        ax.plot(
-            fine,
-            fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
-            ":",
-            color=line.get_color(),
-        )
+    for res in results:
+        style = ENGINE_STYLES.get(res.engine, "-.")
+        for j, label in enumerate(res.nuclei):
+            fit = fits[res.engine][label]
+            ax.plot(
+                cycles,
+                np.abs(res.polarization[point, :, j]),
+                style,
+                marker="o",
+                ms=3,
+                color=f"C{j}",
+                label=f"{label} {res.engine} (sat. {fit['saturation']:.2f})",
+            )
+            ax.plot(
+                fine,
+                fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
+                color=f"C{j}",
+                lw=0.6,
+                alpha=0.5,
+            )
     ax.set_xlabel("cycle")
     ax.set_ylabel("|P|")
     ax.set_ylim(0, 1.05)
     ax.set_title(
         f"Build-up at {result.parameter} = {format_value(result.parameter, result.values[point])}"
     )
-    ax.legend(fontsize=8)
+    ax.legend(fontsize=6, ncol=2)
     fig.tight_layout()
     return fig
 
 
 def comparison_figure(results: list[SweepResult], cycle: int = -1):
-    """Final-cycle spectra of several engines: the first solid, the others dashed."""
+    """Final-cycle spectra of several engines: exact solid, trotter dotted, noisy dashed."""
     plt = _pyplot()
     unit, scale = axis_unit(results[0].parameter)
     fig, ax = plt.subplots(figsize=(7, 4))
-    styles = ["-", "--", ":", "-."]
-    for r_i, res in enumerate(results):
+    for res in results:
+        style = ENGINE_STYLES.get(res.engine, "-.")
         for j, label in enumerate(res.nuclei):
-            ax.plot(
-                res.values * scale,
-                res.polarization[:, cycle, j],
-                styles[r_i % 4],
-                color=f"C{j}",
-                label=f"{label} ({res.engine})",
-            )
+            x, y = res.values * scale, res.polarization[:, cycle, j]
+            ax.plot(x, y, style, color=f"C{j}", label=f"{label} ({res.engine})")
+            if res.stderr is not None:
+                err = res.stderr[:, cycle, j]
+                ax.fill_between(x, y - err, y + err, color=f"C{j}", alpha=0.15, lw=0)
     ax.set_xlabel(f"{results[0].parameter} [{unit}]" if unit else results[0].parameter)
     ax.set_ylabel(f"P after cycle {results[0].cycles if cycle == -1 else cycle + 1}")
     ax.legend(fontsize=7, ncol=2)

@@ -56,9 +56,18 @@ def _refined_peak(values: np.ndarray, curve: np.ndarray) -> tuple[float, float]:
     return float(values[i]), float(curve[i])
 
 
-def peaks(result: SweepResult, cycle: int = -1) -> dict[str, dict[str, float]]:
-    """Per nucleus: the swept value of largest |P| after `cycle` (index), and that |P|."""
-    mags = np.abs(result.polarization[:, cycle, :])
+def peaks(
+    result: SweepResult, cycle: int = -1, *, baseline: bool = False
+) -> dict[str, dict[str, float]]:
+    """Per nucleus: the swept value of largest |P| after `cycle` (index), and that |P|.
+
+    With `baseline`, the signal is |P - median over the sweep|: a constant offset (e.g. the
+    bias of qubit relaxation towards |0> on a noisy processor) then does not move the peaks.
+    """
+    pol = result.polarization[:, cycle, :]
+    if baseline:
+        pol = pol - np.median(pol, axis=0)
+    mags = np.abs(pol)
     out = {}
     for j, label in enumerate(result.nuclei):
         value, height = _refined_peak(result.values, mags[:, j])
@@ -83,7 +92,8 @@ def fit_buildup(curve: np.ndarray) -> tuple[float, float]:
     """Fit |P|(c) = P_sat·(1 - (1 - k)^c), c = 1..len(curve); returns (P_sat, k).
 
     This is exact for one nucleus that takes a fixed fraction k of the remaining polarization
-    each cycle; for a cluster it is a phenomenological saturation model.
+    each cycle; for a cluster it is a phenomenological saturation model. P_sat is held to the
+    physical bound |P| <= 1 (a build-up still linear over the run fits as P_sat = 1, slow k).
     """
     c = np.arange(1, len(curve) + 1, dtype=float)
     y = np.abs(np.asarray(curve, dtype=float))
@@ -91,7 +101,7 @@ def fit_buildup(curve: np.ndarray) -> tuple[float, float]:
         return float(y[-1]), 1.0
     ks = np.linspace(1e-4, 1.0, 4000)
     basis = 1.0 - (1.0 - ks[:, None]) ** c[None, :]
-    amps = (basis @ y) / np.einsum("kc,kc->k", basis, basis)
+    amps = np.minimum((basis @ y) / np.einsum("kc,kc->k", basis, basis), 1.0)
     resid = np.einsum(
         "kc,kc->k", amps[:, None] * basis - y[None, :], amps[:, None] * basis - y[None, :]
     )

@@ -9,7 +9,7 @@ from __future__ import annotations
 import hashlib
 import math
 import tomllib
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from importlib import resources
 from pathlib import Path
 from typing import Any
@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from .errors import ScenarioError
+from .imperfections import Imperfections
 from .lattice import dipolar_from_positions, hyperfine_from_position, random_cluster_nm
 from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED
 from .model import Coupling, Nucleus, SpinSystem
@@ -70,6 +71,23 @@ class MappingSettings:
 
 
 @dataclass(frozen=True)
+class NoiseSettings:
+    """How the noisy engine simulates processor noise.
+
+    `scale` multiplies every error rate and every decoherence rate (1/T1, 1/T2); `method` is
+    `auto` (density matrix when it fits in memory, else trajectories), `density_matrix` or
+    `trajectories`; `trajectories` shots per point are sampled with `seed`; `idle` adds T1/T2
+    relaxation on idle qubits.
+    """
+
+    scale: float = 1.0
+    method: str = "auto"
+    trajectories: int = 256
+    seed: int = 0
+    idle: bool = True
+
+
+@dataclass(frozen=True)
 class Scenario:
     """Everything one run needs: the spins, the drive, the sweep, the cycles, the compiler."""
 
@@ -81,7 +99,9 @@ class Scenario:
     trotter: TrotterSettings
     digest: str = ""
     processor: Processor | None = None
-    mapping: MappingSettings = MappingSettings()
+    mapping: MappingSettings = field(default_factory=MappingSettings)
+    imperfections: Imperfections = field(default_factory=Imperfections)
+    noise: NoiseSettings = field(default_factory=NoiseSettings)
 
     def schedule(self) -> CycleSchedule:
         """One cycle's segments with the swept quantity as the variable."""
@@ -192,7 +212,18 @@ def _check_number(value: Any, key: str, *, minimum: float | None, strict: bool) 
     return value
 
 
-_TOP_KEYS = ("name", "description", "spins", "drive", "sweep", "cycle", "trotter", "processor")
+_TOP_KEYS = (
+    "name",
+    "description",
+    "spins",
+    "drive",
+    "sweep",
+    "cycle",
+    "trotter",
+    "processor",
+    "imperfections",
+    "noise",
+)
 
 
 def load_scenario(path: str | Path) -> Scenario:
@@ -249,9 +280,59 @@ def scenario_from_dict(
     processor, mapping = _read_processor(top.table("processor"))
     if processor is not None:
         check_fits(processor, system.num_qubits)
+    imperfections = _read_imperfections(top.table("imperfections"))
+    noise = _read_noise(top.table("noise"))
     if not digest:
         digest = _digest(repr(sorted(data.items())))
-    return Scenario(name, system, protocol, sweep, count, trotter, digest, processor, mapping)
+    return Scenario(
+        name,
+        system,
+        protocol,
+        sweep,
+        count,
+        trotter,
+        digest,
+        processor,
+        mapping,
+        imperfections,
+        noise,
+    )
+
+
+def _read_imperfections(t: _Table | None) -> Imperfections:
+    """`[imperfections]`: Gaussian σ of the NV detuning (Hz) and of the relative drive error."""
+    if t is None:
+        return Imperfections()
+    out = Imperfections(
+        detuning_sigma_hz=t.number("detuning_sigma_hz", 0.0, minimum=0.0),
+        drive_sigma_rel=t.number("drive_sigma_rel", 0.0, minimum=0.0),
+        method=t.string("method", "quadrature", choices=("quadrature", "sampling")),
+        points=t.integer("points", 3, minimum=1),
+        samples=t.integer("samples", 16, minimum=2),
+        seed=t.integer("seed", 0, minimum=0),
+    )
+    if out.drive_sigma_rel >= 0.5:
+        raise ScenarioError(
+            "`imperfections.drive_sigma_rel` must be < 0.5 (a relative error), "
+            f"got {out.drive_sigma_rel:g}"
+        )
+    t.finish()
+    return out
+
+
+def _read_noise(t: _Table | None) -> NoiseSettings:
+    """`[noise]`: error scale, simulation method, trajectories, seed, idle noise."""
+    if t is None:
+        return NoiseSettings()
+    out = NoiseSettings(
+        scale=t.number("scale", 1.0, minimum=0.0),
+        method=t.string("method", "auto", choices=("auto", "density_matrix", "trajectories")),
+        trajectories=t.integer("trajectories", 256, minimum=2),
+        seed=t.integer("seed", 0, minimum=0),
+        idle=t.boolean("idle", True),
+    )
+    t.finish()
+    return out
 
 
 def _required_table(parent: _Table, name: str) -> _Table:

@@ -1,8 +1,10 @@
 """Trotter compilation: first a plan (pure data), then a qiskit `QuantumCircuit`.
 
 A term h·P of H/h (Hz) evolves for dt as exp(-2πi·h·dt·P) = R_P(θ) with θ = 4π·h·dt, where
-R_P(θ) = exp(-i·θ/2·P) is qiskit's rotation convention. Angles are affine in the swept quantity x
-(`Linear`) and become `Parameter` expressions of one Parameter named after the swept key.
+R_P(θ) = exp(-i·θ/2·P) is qiskit's rotation convention. Angles are polynomials (`Poly`) of the
+program's variables: the swept quantity (a Parameter named after the swept key) and, when system
+imperfections are compiled in, the drive error s (Ω → Ω·(1+s), ideal pulse angles θ → θ·(1+s))
+and the detuning error δ (Δ → Δ + δ), Parameters named as in `imperfections`.
 
 One Trotter step is a sequence of layers; a layer holds rotations on disjoint qubits (so they
 commute exactly). Single-qubit terms form one layer per Pauli letter; the two-qubit terms are
@@ -25,17 +27,19 @@ import networkx as nx
 from qiskit.circuit import Parameter, QuantumCircuit
 from qiskit_aer.library import SaveProbabilities
 
+from .expr import Poly
+from .imperfections import DETUNING_ERROR, DRIVE_ERROR
 from .model import SpinSystem, hamiltonian
-from .protocols import CycleSchedule, Evolve, Linear, Pulse
+from .protocols import CycleSchedule, Evolve, Pulse
 
 
 @dataclass(frozen=True)
 class PauliRotation:
-    """exp(-i·θ/2·P) with P = ⊗ pauli[i] on qubits[i]; θ (rad) = angle.at(x)."""
+    """exp(-i·θ/2·P) with P = ⊗ pauli[i] on qubits[i]; θ (rad) the polynomial `angle`."""
 
     pauli: str
     qubits: tuple[int, ...]
-    angle: Linear
+    angle: Poly
 
 
 @dataclass(frozen=True)
@@ -48,8 +52,15 @@ class Layer:
         return tuple((r.pauli, r.qubits) for r in self.rotations)
 
 
-#: An ideal NV pulse is kept as the protocol's `Pulse` (qiskit's r(θ, φ) on qubit 0).
-Operation = Layer | Pulse
+@dataclass(frozen=True)
+class PulseRotation:
+    """An ideal NV pulse R_φ(θ): qiskit's r(θ, φ) on qubit 0, θ the polynomial `angle`."""
+
+    angle: Poly
+    phase_rad: float
+
+
+Operation = Layer | PulseRotation
 
 
 @dataclass(frozen=True)
@@ -69,7 +80,7 @@ class ProgramPlan:
     num_qubits: int
     cycles: int
     cycle: CyclePlan
-    parameter_name: str
+    parameter_names: tuple[str, ...]
     pair_colours: dict[tuple[int, int], int]
 
     def layering(self) -> dict[str, object]:
@@ -85,31 +96,39 @@ class ProgramPlan:
                 1 for ly in layers if len(ly.rotations[0].qubits) == 2
             ),
             "rotations_per_cycle": dict(sorted(by_pauli.items())),
-            "ideal_pulses_per_cycle": sum(isinstance(op, Pulse) for op in self.cycle.operations),
+            "ideal_pulses_per_cycle": sum(
+                isinstance(op, PulseRotation) for op in self.cycle.operations
+            ),
             "pair_colours": len(set(self.pair_colours.values())),
         }
 
 
-def pauli_terms(system: SpinSystem, segment: Evolve) -> dict[tuple[str, tuple[int, ...]], Linear]:
-    """Non-identity terms of H/h during `segment`, as {(pauli, qubits): coefficient in Hz}."""
-    static = hamiltonian(
-        system,
-        rabi_hz=segment.rabi_hz.offset,
-        detuning_hz=segment.detuning_hz.offset,
-        phase_rad=segment.phase_rad,
-    )
-    moved = hamiltonian(
-        system,
-        rabi_hz=segment.rabi_hz.offset + segment.rabi_hz.slope,
-        detuning_hz=segment.detuning_hz.offset + segment.detuning_hz.slope,
-        phase_rad=segment.phase_rad,
-    )
-    offsets = _by_support(static)
-    slopes = _by_support(moved)
+def pauli_terms(
+    system: SpinSystem, segment: Evolve, variable: str = "x", imperfections: bool = False
+) -> dict[tuple[str, tuple[int, ...]], Poly]:
+    """Non-identity terms of H/h during `segment`: {(pauli, qubits): coefficient in Hz}.
+
+    H is affine in (Ω, Δ): H = H_0 + Ω·H_Ω + Δ·H_Δ at fixed phase. With Ω and Δ the segment's
+    values (affine in `variable`), and with the imperfection variables when asked for.
+    """
+    phase = segment.phase_rad
+    base = _by_support(hamiltonian(system, rabi_hz=0.0, detuning_hz=0.0, phase_rad=phase))
+    per_rabi = _by_support(hamiltonian(system, rabi_hz=1.0, detuning_hz=0.0, phase_rad=phase))
+    per_det = _by_support(hamiltonian(system, rabi_hz=0.0, detuning_hz=1.0, phase_rad=phase))
+    rabi = Poly.from_linear(segment.rabi_hz, variable)
+    detuning = Poly.from_linear(segment.detuning_hz, variable)
+    if imperfections:
+        rabi = rabi * (Poly.constant(1.0) + Poly.variable(DRIVE_ERROR))
+        detuning = detuning + Poly.variable(DETUNING_ERROR)
     terms = {}
-    for key in sorted(set(offsets) | set(slopes)):
-        coeff = Linear(offsets.get(key, 0.0), slopes.get(key, 0.0) - offsets.get(key, 0.0))
-        if coeff.offset != 0.0 or coeff.slope != 0.0:
+    for key in sorted(set(base) | set(per_rabi) | set(per_det)):
+        h0 = base.get(key, 0.0)
+        coeff = (
+            Poly.constant(h0)
+            + rabi * (per_rabi.get(key, 0.0) - h0)
+            + detuning * (per_det.get(key, 0.0) - h0)
+        )
+        if coeff.terms:
             terms[key] = coeff
     return terms
 
@@ -135,14 +154,14 @@ def colour_pairs(pairs: list[tuple[int, int]]) -> dict[tuple[int, int], int]:
 
 
 def step_layers(
-    terms: dict[tuple[str, tuple[int, ...]], Linear],
-    dt: Linear,
+    terms: dict[tuple[str, tuple[int, ...]], Poly],
+    dt: Poly,
     colours: dict[tuple[int, int], int],
 ) -> list[Layer]:
     """Layers of one first-order step of length dt (s); θ = 4π·h·dt per term."""
 
     def rotation(key: tuple[str, tuple[int, ...]]) -> PauliRotation:
-        return PauliRotation(key[0], key[1], terms[key].times(dt).scaled(4 * math.pi))
+        return PauliRotation(key[0], key[1], terms[key] * dt * (4 * math.pi))
 
     layers: list[Layer] = []
     for letter in "ZXY":
@@ -163,16 +182,28 @@ def step_layers(
 
 
 def _segment_operations(
-    system: SpinSystem, segment: Evolve, order: int, colours: dict[tuple[int, int], int]
+    system: SpinSystem,
+    segment: Evolve,
+    order: int,
+    colours: dict[tuple[int, int], int],
+    variable: str,
+    imperfections: bool,
 ) -> list[Layer]:
-    terms = pauli_terms(system, segment)
-    dt = segment.duration_s.scaled(1.0 / segment.steps)
+    terms = pauli_terms(system, segment, variable, imperfections)
+    dt = Poly.from_linear(segment.duration_s, variable) * (1.0 / segment.steps)
     if order == 1:
         step = step_layers(terms, dt, colours)
     else:
-        half = step_layers(terms, dt.scaled(0.5), colours)
+        half = step_layers(terms, dt * 0.5, colours)
         step = half + half[::-1]
     return step * segment.steps
+
+
+def _pulse_operation(pulse: Pulse, imperfections: bool) -> PulseRotation:
+    angle = Poly.constant(pulse.angle_rad)
+    if imperfections:
+        angle = angle * (Poly.constant(1.0) + Poly.variable(DRIVE_ERROR))
+    return PulseRotation(angle, pulse.phase_rad)
 
 
 def merge_layers(operations: list[Operation]) -> list[Operation]:
@@ -193,28 +224,39 @@ def merge_layers(operations: list[Operation]) -> list[Operation]:
 
 
 def plan_program(
-    system: SpinSystem, schedule: CycleSchedule, *, cycles: int, order: int, parameter_name: str
+    system: SpinSystem,
+    schedule: CycleSchedule,
+    *,
+    cycles: int,
+    order: int,
+    parameter_name: str,
+    imperfections: bool = False,
 ) -> ProgramPlan:
-    """Trotter plan of `cycles` cycles of `schedule` on NV + nuclei."""
+    """Trotter plan of `cycles` cycles of `schedule` on NV + nuclei.
+
+    `parameter_name` is the swept variable; with `imperfections`, the angles also depend on the
+    drive and detuning errors (variables `DRIVE_ERROR`, `DETUNING_ERROR`).
+    """
     pairs = [(0, j) for j in range(1, system.num_qubits)]
     pairs += [(c.first + 1, c.second + 1) for c in system.couplings]
     colours = colour_pairs(pairs)
     operations: list[Operation] = []
     for segment in schedule.segments():
         if isinstance(segment, Pulse):
-            operations.append(segment)
+            operations.append(_pulse_operation(segment, imperfections))
         else:
-            operations.extend(_segment_operations(system, segment, order, colours))
+            operations.extend(
+                _segment_operations(system, segment, order, colours, parameter_name, imperfections)
+            )
     cycle = CyclePlan(tuple(merge_layers(operations)))
-    return ProgramPlan(system.num_qubits, cycles, cycle, parameter_name, colours)
+    names = (parameter_name, DRIVE_ERROR, DETUNING_ERROR) if imperfections else (parameter_name,)
+    return ProgramPlan(system.num_qubits, cycles, cycle, names, colours)
 
 
-def _angle(value: Linear, parameter: Parameter):
-    return value.offset if value.slope == 0.0 else value.offset + value.slope * parameter
-
-
-def _append_rotation(circuit: QuantumCircuit, rot: PauliRotation, parameter: Parameter) -> None:
-    theta = _angle(rot.angle, parameter)
+def _append_rotation(
+    circuit: QuantumCircuit, rot: PauliRotation, parameters: dict[str, Parameter]
+) -> None:
+    theta = rot.angle.expression(parameters)
     if len(rot.qubits) == 1:
         getattr(circuit, "r" + rot.pauli.lower())(theta, rot.qubits[0])
         return
@@ -237,15 +279,20 @@ def prepare_mixed_nuclei(circuit: QuantumCircuit, nv: int, nuclei: list[int]) ->
         circuit.reset(nv)
 
 
-def cycle_circuit(plan: ProgramPlan, parameter: Parameter) -> QuantumCircuit:
+def program_parameters(plan: ProgramPlan) -> dict[str, Parameter]:
+    """One fresh Parameter per program variable (the swept key first)."""
+    return {name: Parameter(name) for name in plan.parameter_names}
+
+
+def cycle_circuit(plan: ProgramPlan, parameters: dict[str, Parameter]) -> QuantumCircuit:
     """The unitary part of one cycle (after the NV reset) as a circuit."""
     circuit = QuantumCircuit(plan.num_qubits, name="cycle")
     for op in plan.cycle.operations:
-        if isinstance(op, Pulse):
-            circuit.r(op.angle_rad, op.phase_rad, 0)
+        if isinstance(op, PulseRotation):
+            circuit.r(op.angle.expression(parameters), op.phase_rad, 0)
         else:
             for rot in op.rotations:
-                _append_rotation(circuit, rot, parameter)
+                _append_rotation(circuit, rot, parameters)
     return circuit
 
 
@@ -262,12 +309,11 @@ def build_circuit(plan: ProgramPlan, *, save: bool = True) -> QuantumCircuit:
     Full-width barriers close the preparation and every cycle, so each cycle is a segment that
     stays in place through transpiling and scheduling.
     """
-    parameter = Parameter(plan.parameter_name)
     circuit = QuantumCircuit(plan.num_qubits, name="dnp_program")
     nuclei = list(range(1, plan.num_qubits))
     prepare_mixed_nuclei(circuit, 0, nuclei)
     circuit.barrier()
-    body = cycle_circuit(plan, parameter)
+    body = cycle_circuit(plan, program_parameters(plan))
     for c in range(1, plan.cycles + 1):
         circuit.reset(0)
         circuit.compose(body, inplace=True)

@@ -1,4 +1,5 @@
-"""Simulation engines: `exact` (dense reference) and `trotter` (compiled circuit on Aer)."""
+"""Simulation engines: `exact` (dense reference), `trotter` (compiled circuit, noiseless) and
+`noisy` (the mapped circuit with processor noise)."""
 
 from __future__ import annotations
 
@@ -9,10 +10,12 @@ from ..results import SweepResult
 from ..scenario import Scenario
 from .circuit import simulate_trotter
 from .exact import simulate_exact
+from .noisy import simulate_noisy
 
 ENGINES: dict[str, Callable[..., SweepResult]] = {
     "exact": simulate_exact,
     "trotter": simulate_trotter,
+    "noisy": simulate_noisy,
 }
 
 

@@ -14,9 +14,10 @@ from collections.abc import Callable
 import numpy as np
 
 from ..model import SpinSystem, hamiltonian, z_signs
-from ..protocols import CycleSchedule, Evolve, Pulse
+from ..protocols import CycleSchedule, Evolve, Pulse, perturbed
 from ..results import SweepResult
 from ..scenario import Scenario
+from .circuit import average_nodes
 
 
 class _Propagators:
@@ -85,16 +86,28 @@ def polarization_by_cycle(unitary: np.ndarray, cycles: int, num_nuclei: int) -> 
 def simulate_exact(
     scenario: Scenario, *, on_point: Callable[[], None] | None = None
 ) -> SweepResult:
-    """Exact polarizations over the scenario's sweep (no Trotter error)."""
+    """Exact polarizations over the scenario's sweep (no Trotter error).
+
+    With system imperfections, the average over the same nodes as the circuit engines.
+    """
     system = scenario.system
-    schedule = scenario.schedule()
     props = _Propagators(system)
+    nominal = scenario.schedule()
+    nodes = scenario.imperfections.nodes()
+    schedules = [perturbed(nominal, drive_error=s, detuning_error_hz=d) for _, s, d in nodes]
     values = np.asarray(scenario.sweep.values)
-    pol = np.empty((len(values), scenario.cycles, system.num_nuclei))
+    per_node = np.empty((len(values), len(nodes), scenario.cycles, system.num_nuclei))
     for i, x in enumerate(values):
-        pol[i] = polarization_by_cycle(
-            cycle_unitary(props, schedule, x), scenario.cycles, system.num_nuclei
-        )
+        for k, schedule in enumerate(schedules):
+            per_node[i, k] = polarization_by_cycle(
+                cycle_unitary(props, schedule, x), scenario.cycles, system.num_nuclei
+            )
         if on_point is not None:
             on_point()
-    return SweepResult("exact", scenario.sweep.parameter, values, system.labels, pol)
+    weights = np.array([w for w, _, _ in nodes])
+    pol, err = average_nodes(
+        per_node.reshape(-1, scenario.cycles, system.num_nuclei),
+        weights,
+        scenario.imperfections.method == "sampling",
+    )
+    return SweepResult("exact", scenario.sweep.parameter, values, system.labels, pol, err)

@@ -1,0 +1,155 @@
+"""The noisy engine: the mapped program with processor noise, on Aer.
+
+The scenario's program is mapped onto its processor (the `[processor]` table, else the default
+grid), idle relaxation is inserted, and the circuit runs with the processor's `NoiseModel`:
+with the density-matrix method when 16·4^q bytes fit in half the memory, else as trajectories
+(statevector with sampled noise and sampled resets, `noise.trajectories` shots, seeded), which
+report the statistical error of each value. Imperfection nodes are averaged as in the other
+engines.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+from qiskit import QuantumCircuit
+from qiskit_aer import AerSimulator
+from qiskit_aer.library import SaveProbabilities
+
+from ..errors import ScenarioError
+from ..mapping import MappedProgram, map_program
+from ..model import z_signs
+from ..noise import (
+    density_matrix_bytes,
+    format_bytes,
+    memory_budget_bytes,
+    noise_model,
+    readout_factor,
+    with_idle_relaxation,
+)
+from ..processor import Processor, make_processor
+from ..results import SweepResult
+from ..scenario import Scenario
+from ..trotter import cycle_label
+from .circuit import (
+    compile_program,
+    density_matrix_simulator,
+    node_columns,
+    nuclear_polarizations,
+    run_bound,
+    simulate_circuit,
+)
+
+
+def scenario_processor(scenario: Scenario) -> Processor:
+    return scenario.processor if scenario.processor is not None else make_processor({})
+
+
+def mapped_for(scenario: Scenario, processor: Processor | None = None) -> MappedProgram:
+    """The scenario's program (with imperfection parameters if any) on its processor."""
+    program = compile_program(scenario)
+    return map_program(
+        program.circuit,
+        scenario.system,
+        processor or scenario_processor(scenario),
+        optimization_level=scenario.mapping.optimization_level,
+        seed=scenario.mapping.seed,
+    )
+
+
+def choose_method(scenario: Scenario, num_qubits: int) -> str:
+    """`density_matrix` or `trajectories`, refusing a density matrix that would not fit."""
+    need, have = density_matrix_bytes(num_qubits), memory_budget_bytes()
+    method = scenario.noise.method
+    if method == "auto":
+        return "density_matrix" if need <= have else "trajectories"
+    if method == "density_matrix" and need > have:
+        raise ScenarioError(
+            f'`noise.method` = "density_matrix" needs {format_bytes(need)} for {num_qubits} '
+            f"qubits (16·4^q bytes), more than half the memory ({format_bytes(have)}); use "
+            '"trajectories"'
+        )
+    return method
+
+
+def _pershot(circuit: QuantumCircuit) -> QuantumCircuit:
+    out = circuit.copy_empty_like()
+    for inst in circuit.data:
+        op = inst.operation
+        if op.name == "save_probabilities":
+            op = SaveProbabilities(op.num_qubits, label=op.label, pershot=True)
+        out.append(op, inst.qubits, inst.clbits)
+    return out
+
+
+def _trajectory_reader(factor: float) -> Callable[[dict, int, int], np.ndarray]:
+    """Mean and standard error over shots, as a (2, cycles, n) array."""
+
+    def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
+        signs = z_signs(num_nuclei)
+        per_shot = np.array(
+            [np.asarray(data[cycle_label(c)]) @ signs for c in range(1, cycles + 1)]
+        )  # (cycles, shots, n)
+        shots = per_shot.shape[1]
+        mean = per_shot.mean(axis=1)
+        err = per_shot.std(axis=1, ddof=1) / np.sqrt(shots)
+        return factor * np.stack([mean, err])
+
+    return read
+
+
+def simulate_noisy(
+    scenario: Scenario, *, on_point: Callable[[], None] | None = None
+) -> SweepResult:
+    """Polarizations of the mapped program under processor noise (and imperfections)."""
+    processor = scenario_processor(scenario)
+    mapped = mapped_for(scenario, processor)
+    scale = scenario.noise.scale
+    circuit = mapped.circuit
+    if scenario.noise.idle:
+        circuit = with_idle_relaxation(circuit, mapped.region, processor, scale)
+    model = noise_model(processor, mapped.region, scale)
+    factor = readout_factor(processor, scale)
+    method = choose_method(scenario, circuit.num_qubits)
+    if method == "density_matrix":
+        sim = density_matrix_simulator(noise_model=model)
+
+        def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
+            return factor * nuclear_polarizations(data, cycles, num_nuclei)
+
+        return simulate_circuit(scenario, circuit, "noisy", sim, reader=read, on_point=on_point)
+    sim = AerSimulator(method="statevector", noise_model=model, seed_simulator=scenario.noise.seed)
+    both = _TrajectoryRun(scenario, _pershot(circuit), sim, factor, on_point)
+    return both.result()
+
+
+class _TrajectoryRun:
+    """Trajectory sweep: means and their standard errors, combined over imperfection nodes."""
+
+    def __init__(self, scenario, circuit, simulator, factor, on_point):
+        self.scenario, self.circuit, self.simulator = scenario, circuit, simulator
+        self.factor, self.on_point = factor, on_point
+
+    def result(self) -> SweepResult:
+        sc = self.scenario
+        columns, weights = node_columns(sc)
+        n, cycles = sc.system.num_nuclei, sc.cycles
+        raw = run_bound(
+            self.circuit,
+            columns,
+            cycles=cycles,
+            num_nuclei=n,
+            simulator=self.simulator,
+            shots=sc.noise.trajectories,
+            reader=_trajectory_reader(self.factor),
+            out_shape=(2, cycles, n),
+        )
+        shaped = raw.reshape(-1, len(weights), 2, cycles, n)
+        mean = np.tensordot(weights, shaped[:, :, 0], axes=([0], [1]))
+        err = np.sqrt(np.tensordot(weights**2, shaped[:, :, 1] ** 2, axes=([0], [1])))
+        if self.on_point is not None:
+            for _ in sc.sweep.values:
+                self.on_point()
+        values = np.asarray(sc.sweep.values)
+        return SweepResult("noisy", sc.sweep.parameter, values, sc.system.labels, mean, err)

@@ -1,0 +1,171 @@
+"""Processor noise for the noisy engine (qiskit-aer Kraus channels).
+
+Each gate, reset and readout of duration t on a qubit with (T1, T2) gets thermal relaxation:
+amplitude damping γ = 1 - exp(-t/T1) and coherence decaying as exp(-t/T2) (Nielsen & Chuang,
+§8.3; qiskit-aer `thermal_relaxation_error`). On top of it, a depolarizing channel
+E(ρ) = (1-λ)ρ + λ·I/d on the gate's d = 2^k-dimensional space brings the gate's average
+infidelity up to its rated error ε. Alone it has average gate fidelity F = 1 - λ(d-1)/d (so
+λ = ε·d/(d-1), what qiskit-aer's `depolarizing_error(λ, k)` takes); after relaxation of
+infidelity ε_r the pair has 1 - F = (1-λ)·ε_r + λ(d-1)/d, which fixes λ exactly (zero when
+relaxation alone exceeds ε).
+
+Idle periods: the density-matrix simulator applies no noise to waiting qubits. The mapped circuit
+is scheduled as soon as possible (barriers synchronise, durations from the processor), and every
+idle gap gets a thermal-relaxation instruction, so a qubit left alone in |1> for t decays as
+exp(-t/T1).
+
+Reset: after a reset the qubit is in |1> with probability `error_reset`. Readout: a symmetric
+assignment error e scales each measured polarization by (1 - 2e); the engines save
+probabilities, so it is applied to them (and a `ReadoutError` is in the model for measurements).
+
+`scale` multiplies every error rate and every relaxation rate (1/T1, 1/T2).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+
+from qiskit import QuantumCircuit
+from qiskit.quantum_info import average_gate_fidelity
+from qiskit_aer.noise import (
+    NoiseModel,
+    QuantumError,
+    ReadoutError,
+    depolarizing_error,
+    reset_error,
+    thermal_relaxation_error,
+)
+
+from .budget import AsapClock
+from .processor import VIRTUAL_GATES, Processor
+
+INSTANT = frozenset({"barrier", "save_probabilities", "save_density_matrix"})
+
+
+def relaxation(
+    processor: Processor, qubit: int, time_s: float, scale: float
+) -> QuantumError | None:
+    """Thermal relaxation of physical `qubit` over `time_s` (None when nothing happens)."""
+    if time_s <= 0 or scale <= 0:
+        return None
+    return thermal_relaxation_error(
+        processor.t1_s[qubit] / scale, processor.t2_s[qubit] / scale, time_s
+    )
+
+
+def depolarizing_parameter(error: float, num_qubits: int) -> float:
+    """λ with average gate infidelity `error` for E(ρ) = (1-λ)ρ + λ·I/d: λ = ε·d/(d-1)."""
+    d = 2**num_qubits
+    return error * d / (d - 1)
+
+
+def topping_up_parameter(error: float, relax_error: float, num_qubits: int) -> float:
+    """λ of the depolarizing channel that, after a channel of infidelity `relax_error`, gives
+    average infidelity `error`: 1 - F(D_λ∘E) = (1-λ)·ε_E + λ(d-1)/d, solved for λ (0 if the
+    relaxation alone is worse)."""
+    d = 2**num_qubits
+    if error <= relax_error:
+        return 0.0
+    return min((error - relax_error) / ((d - 1) / d - relax_error), d * d / (d * d - 1))
+
+
+def gate_error(
+    processor: Processor, name: str, qubits: list[int], scale: float
+) -> QuantumError | None:
+    """Relaxation during the gate, then depolarizing up to its rated infidelity."""
+    if name in VIRTUAL_GATES:
+        return None
+    duration = processor.gate_duration_s(name)
+    parts = [relaxation(processor, q, duration, scale) for q in qubits]
+    if any(p is None for p in parts):
+        relax = None
+    else:
+        relax = parts[0]
+        for p in parts[1:]:
+            relax = p.tensor(relax)  # qiskit order: the later qubit is the higher factor
+    eps_relax = 0.0 if relax is None else 1.0 - average_gate_fidelity(relax)
+    lam = topping_up_parameter(processor.gate_error(name) * scale, eps_relax, len(qubits))
+    dep = depolarizing_error(lam, len(qubits)) if lam > 0 else None
+    if relax is None:
+        return dep
+    return relax if dep is None else relax.compose(dep)
+
+
+def noise_model(processor: Processor, region: tuple[int, ...], scale: float = 1.0) -> NoiseModel:
+    """NoiseModel for a circuit on `region` (circuit qubit i = physical region[i])."""
+    model = NoiseModel(basis_gates=[*processor.one_qubit_gates, processor.two_qubit_gate, "reset"])
+    local = {p: i for i, p in enumerate(region)}
+    for name in processor.one_qubit_gates:
+        for phys, i in local.items():
+            error = gate_error(processor, name, [phys], scale)
+            if error is not None:
+                model.add_quantum_error(error, name, [i])
+    for a, b in processor.edges:
+        if a in local and b in local:
+            for pa, pb in ((a, b), (b, a)):
+                error = gate_error(processor, processor.two_qubit_gate, [pa, pb], scale)
+                if error is not None:
+                    model.add_quantum_error(error, processor.two_qubit_gate, [local[pa], local[pb]])
+    p1 = min(1.0, processor.error_reset * scale)
+    for phys, i in local.items():
+        error = reset_error(1.0 - p1, p1) if p1 > 0 else None
+        relax = relaxation(processor, phys, processor.time_reset_s, scale)
+        if relax is not None:
+            error = relax if error is None else error.compose(relax)
+        if error is not None:
+            model.add_quantum_error(error, "reset", [i])
+        e = min(0.5, processor.error_readout * scale)
+        if e > 0:
+            model.add_readout_error(ReadoutError([[1 - e, e], [e, 1 - e]]), [i])
+    return model
+
+
+def readout_factor(processor: Processor, scale: float = 1.0) -> float:
+    """Polarization scale (1 - 2e) of a symmetric readout error e."""
+    return 1.0 - 2.0 * min(0.5, processor.error_readout * scale)
+
+
+def with_idle_relaxation(
+    circuit: QuantumCircuit, region: tuple[int, ...], processor: Processor, scale: float = 1.0
+) -> QuantumCircuit:
+    """A copy of `circuit` with thermal relaxation inserted in every idle gap (ASAP schedule)."""
+    out = circuit.copy_empty_like()
+    clock = AsapClock(range(circuit.num_qubits))
+
+    def idle(gaps: dict[int, float]) -> None:
+        for q, t in gaps.items():
+            error = relaxation(processor, region[q], t, scale)
+            if error is not None:
+                out.append(error.to_instruction(), [q])
+
+    for inst in circuit.data:
+        qubits = [circuit.find_bit(q).index for q in inst.qubits]
+        name = inst.operation.name
+        if name.startswith("save"):
+            idle(clock.sync(range(circuit.num_qubits)))  # a snapshot of the whole register
+        elif name in INSTANT:
+            idle(clock.sync(qubits))
+        else:
+            idle(clock.place(qubits, processor.gate_duration_s(name))[1])
+        out.append(inst)
+    return out
+
+
+def density_matrix_bytes(num_qubits: int) -> int:
+    """Memory of one complex128 density matrix: 16·4^q bytes."""
+    return 16 * 4**num_qubits
+
+
+def memory_budget_bytes() -> int:
+    """Half of this machine's physical memory (4 GiB if it cannot be read)."""
+    try:
+        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") // 2
+    except (OSError, ValueError):
+        return 4 * 2**30
+
+
+def format_bytes(count: float) -> str:
+    units = ["B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"]
+    k = min(len(units) - 1, int(math.log(max(count, 1), 1024)))
+    return f"{count / 1024**k:.3g} {units[k]}"
