@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -19,8 +20,11 @@ from .mapping import map_program
 from .processor import Processor, make_processor, processor_for_spec
 from .results import saturation
 from .scenario import Scenario, check_point, demo_scenario, load_scenario
+from .store import STORE_NAME, ResultsStore
+from .sweep import Interrupted
 
 EXIT_USAGE = 2
+EXIT_INTERRUPTED = 130
 
 
 class _Parser(argparse.ArgumentParser):
@@ -38,6 +42,23 @@ def _parser() -> argparse.ArgumentParser:
     )
     run.add_argument("scenario", nargs="?", help="scenario TOML file (default: the bundled demo)")
     run.add_argument("--out", default=None, help="output folder (default: results/<scenario name>)")
+    run.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        help="local worker processes (default: the number of cores)",
+    )
+    run.add_argument(
+        "--scheduler",
+        default=None,
+        help="address of a Dask scheduler (e.g. tcp://10.0.0.5:8786) to run on",
+    )
+    run.add_argument(
+        "--resume",
+        action="store_true",
+        help="continue a stopped run in --out, computing only missing points",
+    )
+    run.add_argument("--fresh", action="store_true", help="discard a previous run in --out")
     run.add_argument(
         "--engines",
         default=None,
@@ -115,17 +136,55 @@ def _cmd_run(args) -> int:
     default = "exact,trotter,noisy" if scenario.processor is not None else "exact,trotter"
     engines = _engines(args.engines or default)
     out = Path(args.out) if args.out else Path("results") / scenario.name
+    workers = _workers(args.workers)
+    store = _open_store(out, scenario, engines, resume=args.resume, fresh=args.fresh)
     bars = {e: _progress(len(scenario.sweep.values), e) for e in engines}
     try:
-        outcome = run_scenario(scenario, engines, on_point=lambda e: bars[e].update())
+        outcome = run_scenario(
+            scenario,
+            engines,
+            store=store,
+            workers=workers,
+            scheduler=args.scheduler,
+            on_point=lambda e, k: bars[e].update(k),
+        )
+    except Interrupted as stop:
+        print(f"dnpqc: {stop}; the rest runs with --resume", file=sys.stderr)
+        return EXIT_INTERRUPTED
     finally:
         for bar in bars.values():
             bar.close()
+        store.close()
     write_run(outcome, out)
     for line in outcome.summary_lines():
         print(line)
     print(f"report: {out / 'report.json'} (plots and sweep.csv beside it)")
     return 0
+
+
+def _workers(value: int | None) -> int:
+    if value is None:
+        return os.cpu_count() or 1
+    if value < 1:
+        raise ScenarioError(f"`--workers` must be >= 1, got {value}")
+    return value
+
+
+def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: bool):
+    """The run's results store: new, resumed (`--resume`) or replaced (`--fresh`)."""
+    path = out / STORE_NAME
+    if path.exists() and not resume:
+        if not fresh:
+            raise ScenarioError(
+                f"{str(out)!r} already holds a run ({STORE_NAME}); continue it with --resume or "
+                "discard it with --fresh"
+            )
+        for suffix in ("", "-wal", "-shm"):
+            Path(f"{path}{suffix}").unlink(missing_ok=True)
+    if resume and not path.exists():
+        raise ScenarioError(f"--resume: no run to resume in {str(out)!r} ({STORE_NAME} missing)")
+    shape = (scenario.cycles, scenario.system.num_nuclei)
+    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape)
 
 
 def write_run(outcome: RunOutcome, out: Path) -> None:

@@ -6,7 +6,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from .codesign import compare_processors, program_budget
-from .engines import simulate
 from .engines.circuit import Program, compile_program
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import processor_for_spec
@@ -14,6 +13,8 @@ from .protocols import expected_resonances
 from .report import format_value
 from .results import SweepResult, best_common, max_difference, peaks, saturation
 from .scenario import Scenario
+from .store import ResultsStore
+from .sweep import run_engines
 
 
 @dataclass(frozen=True)
@@ -206,13 +207,18 @@ def run_scenario(
     scenario: Scenario,
     engines: tuple[str, ...] = ("exact", "trotter"),
     *,
-    on_point: Callable[[str], None] | None = None,
+    store: ResultsStore | None = None,
+    workers: int = 1,
+    scheduler: str | None = None,
+    on_point: Callable[[str, int], None] | None = None,
 ) -> RunOutcome:
-    """Simulate `scenario` with each engine in turn; `on_point(engine)` ticks after each point."""
-    results = {}
-    for engine in engines:
-        tick = (lambda e=engine: on_point(e)) if on_point else None
-        results[engine] = simulate(scenario, engine, on_point=tick)
+    """Simulate `scenario` with each engine (points missing from `store` only), then analyse.
+
+    `on_point(engine, k)` reports k more finished points.
+    """
+    results = run_engines(
+        scenario, engines, store=store, workers=workers, scheduler=scheduler, on_point=on_point
+    )
     budget = compare = None
     if scenario.processor is not None:
         budget = program_budget(scenario, scenario.processor)

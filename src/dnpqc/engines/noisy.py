@@ -10,6 +10,8 @@ engines.
 
 from __future__ import annotations
 
+import hashlib
+import struct
 from collections.abc import Callable
 
 import numpy as np
@@ -119,37 +121,42 @@ def simulate_noisy(
             return factor * nuclear_polarizations(data, cycles, num_nuclei)
 
         return simulate_circuit(scenario, circuit, "noisy", sim, reader=read, on_point=on_point)
-    sim = AerSimulator(method="statevector", noise_model=model, seed_simulator=scenario.noise.seed)
-    both = _TrajectoryRun(scenario, _pershot(circuit), sim, factor, on_point)
-    return both.result()
+    return _trajectories(scenario, _pershot(circuit), model, factor, on_point)
 
 
-class _TrajectoryRun:
-    """Trajectory sweep: means and their standard errors, combined over imperfection nodes."""
+def point_seed(base: int, value: float) -> int:
+    """Seed of one sweep point, from its value: the same however the sweep is split."""
+    digest = hashlib.sha256(struct.pack("<d", float(value))).digest()
+    return (base + int.from_bytes(digest[:4], "little")) % 2**31
 
-    def __init__(self, scenario, circuit, simulator, factor, on_point):
-        self.scenario, self.circuit, self.simulator = scenario, circuit, simulator
-        self.factor, self.on_point = factor, on_point
 
-    def result(self) -> SweepResult:
-        sc = self.scenario
-        columns, weights = node_columns(sc)
-        n, cycles = sc.system.num_nuclei, sc.cycles
+def _trajectories(scenario, circuit, model, factor, on_point) -> SweepResult:
+    """Per point (own seed): means and standard errors, combined over imperfection nodes."""
+    n, cycles = scenario.system.num_nuclei, scenario.cycles
+    columns, weights = node_columns(scenario)
+    per_point = len(weights)
+    mean = np.empty((len(scenario.sweep.values), cycles, n))
+    err = np.empty_like(mean)
+    for i, value in enumerate(scenario.sweep.values):
+        sim = AerSimulator(
+            method="statevector",
+            noise_model=model,
+            seed_simulator=point_seed(scenario.noise.seed, value),
+        )
+        rows = slice(i * per_point, (i + 1) * per_point)
         raw = run_bound(
-            self.circuit,
-            columns,
+            circuit,
+            {k: v[rows] for k, v in columns.items()},
             cycles=cycles,
             num_nuclei=n,
-            simulator=self.simulator,
-            shots=sc.noise.trajectories,
-            reader=_trajectory_reader(self.factor),
+            simulator=sim,
+            shots=scenario.noise.trajectories,
+            reader=_trajectory_reader(factor),
             out_shape=(2, cycles, n),
         )
-        shaped = raw.reshape(-1, len(weights), 2, cycles, n)
-        mean = np.tensordot(weights, shaped[:, :, 0], axes=([0], [1]))
-        err = np.sqrt(np.tensordot(weights**2, shaped[:, :, 1] ** 2, axes=([0], [1])))
-        if self.on_point is not None:
-            for _ in sc.sweep.values:
-                self.on_point()
-        values = np.asarray(sc.sweep.values)
-        return SweepResult("noisy", sc.sweep.parameter, values, sc.system.labels, mean, err)
+        mean[i] = np.tensordot(weights, raw[:, 0], axes=([0], [0]))
+        err[i] = np.sqrt(np.tensordot(weights**2, raw[:, 1] ** 2, axes=([0], [0])))
+        if on_point is not None:
+            on_point()
+    values = np.asarray(scenario.sweep.values)
+    return SweepResult("noisy", scenario.sweep.parameter, values, scenario.system.labels, mean, err)

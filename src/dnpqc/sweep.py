@@ -1,0 +1,169 @@
+"""Running sweeps: points split into tasks, run serially, on a local process pool or on a Dask
+cluster, each finished task committed to the results store at once.
+
+Sweep points (with their imperfection nodes) are independent, so a task is a list of point
+indices; its result does not depend on how the points were split (trajectory seeds derive from
+each point's value), so pool and cluster runs equal a serial run. Ctrl-C stops cleanly: what
+finished is in the store and `--resume` computes only the rest.
+"""
+
+from __future__ import annotations
+
+import math
+import multiprocessing
+from collections.abc import Callable
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import replace
+
+import numpy as np
+
+from .engines import simulate
+from .errors import ScenarioError
+from .results import SweepResult
+from .scenario import Scenario, Sweep
+from .store import ResultsStore
+
+#: Points per task at most, per engine: circuit engines compile once per task.
+TASK_POINTS = {"exact": 4, "trotter": 32, "noisy": 32}
+
+
+class Interrupted(Exception):
+    """Ctrl-C during a sweep; `stored` of `total` points are safe in the store."""
+
+    def __init__(self, stored: int, total: int):
+        super().__init__(f"interrupted: {stored} of {total} points stored")
+        self.stored, self.total = stored, total
+
+
+def compute_points(scenario: Scenario, engine: str, indices: list[int]):
+    """Run `engine` on the sweep points `indices` only: (indices, polarization, stderr)."""
+    values = tuple(scenario.sweep.values[i] for i in indices)
+    sub = replace(scenario, sweep=Sweep(scenario.sweep.parameter, values))
+    result = simulate(sub, engine)
+    return indices, result.polarization, result.stderr
+
+
+def split_tasks(missing: list[int], engine: str, workers: int) -> list[list[int]]:
+    """Contiguous chunks: at most TASK_POINTS[engine], and at least one per worker."""
+    if not missing:
+        return []
+    size = max(1, min(TASK_POINTS.get(engine, 8), math.ceil(len(missing) / max(1, workers))))
+    return [missing[i : i + size] for i in range(0, len(missing), size)]
+
+
+def _executor(workers: int, scheduler: str | None):
+    if scheduler:
+        try:
+            from distributed import Client
+        except ImportError:
+            raise ScenarioError(
+                "`--scheduler` needs the Dask distributed package: pip install 'dnpqc[cluster]'"
+            ) from None
+        try:
+            return _DaskExecutor(Client(scheduler, timeout=10))
+        except OSError as exc:
+            raise ScenarioError(f"`--scheduler` {scheduler!r}: cannot connect ({exc})") from None
+    return ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+
+
+class _DaskExecutor:
+    """A Dask client behind the concurrent.futures interface used here."""
+
+    def __init__(self, client):
+        self.client = client
+
+    def submit(self, fn, *args):
+        return self.client.submit(fn, *args, pure=False)
+
+    def shutdown(self, cancel_futures: bool = False) -> None:
+        if cancel_futures:
+            self.client.cancel(list(self.client.futures.values()))
+        self.client.close()
+
+
+def _wait_any(futures: set):
+    if futures and hasattr(next(iter(futures)), "key"):  # Dask futures
+        from distributed import wait as dask_wait
+
+        done = dask_wait(futures, return_when="FIRST_COMPLETED").done
+        return done, futures - done
+    return wait(futures, return_when=FIRST_COMPLETED)
+
+
+def run_engines(
+    scenario: Scenario,
+    engines: tuple[str, ...],
+    *,
+    store: ResultsStore | None = None,
+    workers: int = 1,
+    scheduler: str | None = None,
+    on_point: Callable[[str, int], None] | None = None,
+) -> dict[str, SweepResult]:
+    """Every engine over the sweep; only points missing from `store` are computed."""
+    count = len(scenario.sweep.values)
+    shape = (scenario.cycles, scenario.system.num_nuclei)
+    memory = {e: (np.full((count, *shape), np.nan), None) for e in engines}
+    tasks = []
+    for engine in engines:
+        done = store.done(engine) if store is not None else set()
+        if on_point is not None and done:
+            on_point(engine, len(done))
+        missing = [i for i in range(count) if i not in done]
+        tasks += [(engine, chunk) for chunk in split_tasks(missing, engine, workers)]
+    total = count * len(engines)
+    stored = total - sum(len(chunk) for _, chunk in tasks)
+
+    def finish(engine: str, indices, pol, err) -> None:
+        nonlocal stored
+        if store is not None:
+            store.put(engine, indices, [scenario.sweep.values[i] for i in indices], pol, err)
+        _keep(memory, engine, indices, pol, err)
+        stored += len(indices)
+        if on_point is not None:
+            on_point(engine, len(indices))
+
+    try:
+        if scheduler is None and (workers <= 1 or len(tasks) <= 1):
+            for engine, chunk in tasks:
+                finish(engine, *compute_points(scenario, engine, chunk))
+        else:
+            _run_parallel(scenario, tasks, _executor(workers, scheduler), finish)
+    except KeyboardInterrupt:
+        raise Interrupted(stored, total) from None
+    return {e: _result(scenario, e, store, memory) for e in engines}
+
+
+def _run_parallel(scenario, tasks, executor, finish) -> None:
+    """Submit every task, then commit each as it completes (in completion order)."""
+    try:
+        pending = {executor.submit(compute_points, scenario, e, chunk): e for e, chunk in tasks}
+        remaining = set(pending)
+        while remaining:
+            finished, remaining = _wait_any(remaining)
+            for future in finished:
+                finish(pending[future], *future.result())
+    finally:
+        executor.shutdown(cancel_futures=True)
+
+
+def _keep(memory, engine, indices, pol, err) -> None:
+    full_pol, full_err = memory[engine]
+    full_pol[indices] = pol
+    if err is not None:
+        if full_err is None:
+            full_err = np.full_like(full_pol, np.nan)
+        full_err[indices] = err
+    memory[engine] = (full_pol, full_err)
+
+
+def _result(scenario, engine, store, memory) -> SweepResult:
+    count = len(scenario.sweep.values)
+    pol, err = store.load(engine, count) if store is not None else memory[engine]
+    return SweepResult(
+        engine,
+        scenario.sweep.parameter,
+        np.asarray(scenario.sweep.values),
+        scenario.system.labels,
+        pol,
+        err,
+    )

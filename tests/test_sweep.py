@@ -1,0 +1,164 @@
+"""Parallel, distributed and resumable sweeps: the same numbers as a serial run."""
+
+import json
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+from conftest import THREE_NUCLEI
+
+from dnpqc import ScenarioError, parse_scenario
+from dnpqc.cli import main
+from dnpqc.store import STORE_NAME, ResultsStore
+from dnpqc.sweep import run_engines, split_tasks
+
+SMALL = THREE_NUCLEI.replace("points = 4", "points = 9").replace("steps = 30", "steps = 6")
+
+
+def test_tasks_cover_every_point_once():
+    tasks = split_tasks(list(range(23)), "exact", 2)
+    assert sorted(i for t in tasks for i in t) == list(range(23))
+    assert max(len(t) for t in tasks) <= 4
+
+
+def test_process_pool_equals_serial():
+    sc = parse_scenario(SMALL)
+    serial = run_engines(sc, ("exact", "trotter"), workers=1)
+    pooled = run_engines(sc, ("exact", "trotter"), workers=2)
+    for engine in ("exact", "trotter"):
+        assert np.array_equal(serial[engine].polarization, pooled[engine].polarization)
+
+
+def test_trajectories_do_not_depend_on_the_split():
+    text = SMALL.replace("points = 9", "points = 3").replace("steps = 6", "steps = 2") + (
+        '[processor]\ntopology = "line:4"\n[noise]\nmethod = "trajectories"\ntrajectories = 20\n'
+    )
+    sc = parse_scenario(text)
+    whole = run_engines(sc, ("noisy",), workers=1)["noisy"]
+    split = run_engines(sc, ("noisy",), workers=3)["noisy"]
+    assert np.array_equal(whole.polarization, split.polarization)
+    assert np.array_equal(whole.stderr, split.stderr)
+
+
+def test_dask_local_cluster_equals_serial():
+    distributed = pytest.importorskip("distributed")
+    sc = parse_scenario(SMALL)
+    serial = run_engines(sc, ("exact",), workers=1)["exact"]
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None, processes=True
+    ) as cluster:
+        remote = run_engines(sc, ("exact",), scheduler=cluster.scheduler_address)["exact"]
+    assert np.array_equal(serial.polarization, remote.polarization)
+
+
+def test_store_resumes_only_missing_points(tmp_path):
+    sc = parse_scenario(SMALL)
+    shape = (sc.cycles, sc.system.num_nuclei)
+    store = ResultsStore(tmp_path / STORE_NAME, digest=sc.digest, engines=("exact",), shape=shape)
+    full = run_engines(sc, ("exact",), workers=1)["exact"]
+    store.put("exact", [0, 1, 2], sc.sweep.values[:3], full.polarization[:3])
+    resumed = run_engines(sc, ("exact",), store=store, workers=1)["exact"]
+    assert np.array_equal(resumed.polarization, full.polarization)
+    assert sorted(store.computations()) == [("exact", i) for i in range(9)]
+    store.close()
+    other = parse_scenario(SMALL.replace("d_hz = 900.0", "d_hz = 901.0"))
+    with pytest.raises(ScenarioError, match="holds a run of another scenario"):
+        ResultsStore(tmp_path / STORE_NAME, digest=other.digest, engines=("exact",), shape=shape)
+
+
+def test_cli_refuses_to_overwrite_and_resumes(tmp_path):
+    path = tmp_path / "s.toml"
+    path.write_text(SMALL)
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "1"]) == 0
+    assert main(["run", str(path), "--out", str(out), "--engines", "exact"]) == 2
+    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--resume"]) == 0
+    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--fresh"]) == 0
+    assert main(["run", str(path), "--out", str(tmp_path / "none"), "--resume"]) == 2
+    path.write_text(SMALL.replace("count = 3", "count = 2"))
+    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--resume"]) == 2
+
+
+# eight nuclei: the exact engine takes ~0.1 s per point (eigh of 512×512)
+KILLABLE = (
+    "[spins]\nfield_t = 0.03\n"
+    + "".join(
+        f'[[spins.nuclei]]\nlabel = "N{j}"\na_par_hz = {5e3 * j}\na_perp_hz = {3e3 + 1e3 * j}\n'
+        for j in range(1, 9)
+    )
+    + '[drive]\nprotocol = "spin-lock"\nrabi_hz = 330e3\n'
+    + '[sweep]\nparameter = "rabi_hz"\nstart = 320e3\nstop = 345e3\npoints = 30\n'
+    + "[cycle]\ninteraction_time_s = 10e-6\ncount = 2\n"
+)
+
+
+def _rows(db_path) -> int:
+    if not db_path.exists():
+        return 0  # (connecting would create the file)
+    try:
+        with sqlite3.connect(f"file:{db_path}?mode=ro", uri=True) as db:
+            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+    except sqlite3.Error:
+        return 0
+
+
+def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
+    # a run is killed (SIGKILL, no clean-up) mid-way, then resumed
+    path = tmp_path / "k.toml"
+    path.write_text(KILLABLE)
+    out = tmp_path / "killed"
+    cmd = [
+        sys.executable,
+        "-m",
+        "dnpqc.cli",
+        "run",
+        str(path),
+        "--out",
+        str(out),
+        "--engines",
+        "exact",
+        "--workers",
+        "1",
+    ]
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.time() + 60
+    while _rows(out / STORE_NAME) < 8 and time.time() < deadline and proc.poll() is None:
+        time.sleep(0.05)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
+    partial = _rows(out / STORE_NAME)
+    assert 0 < partial < 30
+    assert (
+        main(
+            [
+                "run",
+                str(path),
+                "--out",
+                str(out),
+                "--engines",
+                "exact",
+                "--resume",
+                "--workers",
+                "1",
+            ]
+        )
+        == 0
+    )
+    clean = tmp_path / "clean"
+    assert (
+        main(["run", str(path), "--out", str(clean), "--engines", "exact", "--workers", "1"]) == 0
+    )
+    a = json.loads((out / "report.json").read_text())["engines"]["exact"]["polarization"]
+    b = json.loads((clean / "report.json").read_text())["engines"]["exact"]["polarization"]
+    # the same numbers to rounding (LAPACK's last bits may differ between processes)
+    assert np.allclose(a, b, rtol=0, atol=1e-12)
+    store = ResultsStore(
+        out / STORE_NAME, digest=parse_scenario(KILLABLE).digest, engines=("exact",), shape=(2, 8)
+    )
+    done = store.computations()
+    store.close()
+    assert len(done) == len(set(done)) == 30  # no point computed twice
