@@ -27,6 +27,9 @@ circuits: $(STAMP)
 	  $(BIN)/dnpqc compile $(DEMO_SCENARIO) --processor $$p -o circuits/demo-$$p.qasm || exit 1; \
 	done
 
+bench: $(STAMP)
+	$(BIN)/python benchmarks/run.py
+
 lint: $(STAMP)
 	$(BIN)/ruff check src tests benchmarks
 	$(BIN)/ruff format --check src tests benchmarks

@@ -23,9 +23,6 @@ probabilities, so it is applied to them (and a `ReadoutError` is in the model fo
 
 from __future__ import annotations
 
-import math
-import os
-
 from qiskit import QuantumCircuit
 from qiskit.quantum_info import average_gate_fidelity
 from qiskit_aer.noise import (
@@ -150,22 +147,3 @@ def with_idle_relaxation(
             idle(clock.place(qubits, processor.gate_duration_s(name))[1])
         out.append(inst)
     return out
-
-
-def density_matrix_bytes(num_qubits: int) -> int:
-    """Memory of one complex128 density matrix: 16·4^q bytes."""
-    return 16 * 4**num_qubits
-
-
-def memory_budget_bytes() -> int:
-    """Half of this machine's physical memory (4 GiB if it cannot be read)."""
-    try:
-        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") // 2
-    except (OSError, ValueError):
-        return 4 * 2**30
-
-
-def format_bytes(count: float) -> str:
-    units = ["B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"]
-    k = min(len(units) - 1, int(math.log(max(count, 1), 1024)))
-    return f"{count / 1024**k:.3g} {units[k]}"

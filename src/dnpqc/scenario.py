@@ -88,6 +88,14 @@ class NoiseSettings:
 
 
 @dataclass(frozen=True)
+class TypicalSettings:
+    """The typicality engine: random nuclear states per point (and node), and their seed."""
+
+    states: int = 32
+    seed: int = 0
+
+
+@dataclass(frozen=True)
 class Scenario:
     """Everything one run needs: the spins, the drive, the sweep, the cycles, the compiler."""
 
@@ -102,6 +110,7 @@ class Scenario:
     mapping: MappingSettings = field(default_factory=MappingSettings)
     imperfections: Imperfections = field(default_factory=Imperfections)
     noise: NoiseSettings = field(default_factory=NoiseSettings)
+    typical: TypicalSettings = field(default_factory=TypicalSettings)
 
     def schedule(self) -> CycleSchedule:
         """One cycle's segments with the swept quantity as the variable."""
@@ -223,6 +232,7 @@ _TOP_KEYS = (
     "processor",
     "imperfections",
     "noise",
+    "typical",
 )
 
 
@@ -282,6 +292,12 @@ def scenario_from_dict(
         check_fits(processor, system.num_qubits)
     imperfections = _read_imperfections(top.table("imperfections"))
     noise = _read_noise(top.table("noise"))
+    typical_table = top.table("typical") or _Table({}, "typical")
+    typical = TypicalSettings(
+        states=typical_table.integer("states", 32, minimum=2),
+        seed=typical_table.integer("seed", 0, minimum=0),
+    )
+    typical_table.finish()
     if not digest:
         digest = _digest(repr(sorted(data.items())))
     return Scenario(
@@ -296,6 +312,7 @@ def scenario_from_dict(
         mapping,
         imperfections,
         noise,
+        typical,
     )
 
 

@@ -1,5 +1,6 @@
 """Simulation engines: `exact` (dense reference), `trotter` (compiled circuit, noiseless) and
-`noisy` (the mapped circuit with processor noise)."""
+`noisy` (the mapped circuit with processor noise), `typical` (random states, sparse
+propagation: large clusters)."""
 
 from __future__ import annotations
 
@@ -11,11 +12,13 @@ from ..scenario import Scenario
 from .circuit import simulate_trotter
 from .exact import simulate_exact
 from .noisy import simulate_noisy
+from .typical import simulate_typical
 
 ENGINES: dict[str, Callable[..., SweepResult]] = {
     "exact": simulate_exact,
     "trotter": simulate_trotter,
     "noisy": simulate_noisy,
+    "typical": simulate_typical,
 }
 
 

@@ -18,6 +18,7 @@ from qiskit_aer import AerSimulator
 
 from ..imperfections import DETUNING_ERROR, DRIVE_ERROR
 from ..model import z_signs
+from ..resources import density_matrix_bytes, require_memory
 from ..results import SweepResult
 from ..scenario import Scenario
 from ..trotter import ProgramPlan, build_circuit, cycle_label, plan_program
@@ -156,6 +157,14 @@ def simulate_trotter(
     scenario: Scenario, *, on_point: Callable[[], None] | None = None
 ) -> SweepResult:
     """Noiseless Trotter-circuit polarizations over the scenario's sweep."""
+    q = scenario.system.num_qubits
+    require_memory(
+        "trotter",
+        density_matrix_bytes(q),
+        f"a density matrix of {q} qubits",
+        "use the typical engine (--engine typical) for the physics, or the noisy "
+        'engine with [noise] method = "trajectories"',
+    )
     program = compile_program(scenario)
     return simulate_circuit(
         scenario, program.circuit, "trotter", density_matrix_simulator(), on_point=on_point

@@ -15,6 +15,7 @@ import numpy as np
 
 from ..model import SpinSystem, hamiltonian, z_signs
 from ..protocols import CycleSchedule, Evolve, Pulse, perturbed
+from ..resources import require_memory
 from ..results import SweepResult
 from ..scenario import Scenario
 from .circuit import average_nodes
@@ -91,6 +92,13 @@ def simulate_exact(
     With system imperfections, the average over the same nodes as the circuit engines.
     """
     system = scenario.system
+    # eigh of the dense H (2^(n+1) square) holds about four such matrices at once
+    require_memory(
+        "exact",
+        4 * 16 * 4**system.num_qubits,
+        f"NV + {system.num_nuclei} nuclei",
+        "use the typical engine (--engine typical)",
+    )
     props = _Propagators(system)
     nominal = scenario.schedule()
     nodes = scenario.imperfections.nodes()

@@ -22,15 +22,9 @@ from qiskit_aer.library import SaveProbabilities
 from ..errors import ScenarioError
 from ..mapping import MappedProgram, map_program
 from ..model import z_signs
-from ..noise import (
-    density_matrix_bytes,
-    format_bytes,
-    memory_budget_bytes,
-    noise_model,
-    readout_factor,
-    with_idle_relaxation,
-)
+from ..noise import noise_model, readout_factor, with_idle_relaxation
 from ..processor import Processor, make_processor
+from ..resources import density_matrix_bytes, format_bytes, memory_budget_bytes
 from ..results import SweepResult
 from ..scenario import Scenario
 from ..trotter import cycle_label

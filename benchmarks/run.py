@@ -1,0 +1,196 @@
+"""dnpqc benchmarks: each case times two ways of doing one job in the same run and prints ratios.
+
+Run with `make bench`. Machines are noisy: compare the ratios, not the absolute seconds.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+from dataclasses import replace
+
+import numpy as np
+import qutip
+from qiskit import transpile
+from qiskit_aer import AerSimulator
+
+from dnpqc import compile_program, parse_scenario, simulate
+from dnpqc.engines.circuit import density_matrix_simulator, run_program
+from dnpqc.engines.exact import nv_rotation
+from dnpqc.engines.noisy import mapped_for
+from dnpqc.model import hamiltonian
+from dnpqc.noise import noise_model, with_idle_relaxation
+from dnpqc.processor import build_target
+from dnpqc.scenario import Sweep
+
+
+def cluster(n: int, *, points: int, cycles: int, steps: int = 10, time_s: float = 12e-6) -> str:
+    """An invented NV-centric cluster of n nuclei (benchmark data only)."""
+    nuclei = "".join(
+        f'[[spins.nuclei]]\nlabel = "N{j}"\na_par_hz = {4e3 * j - 9e3}\n'
+        f"a_perp_hz = {3e3 + 1.5e3 * j}\n"
+        for j in range(1, n + 1)
+    )
+    return (
+        f"[spins]\nfield_t = 0.03\n{nuclei}"
+        '[drive]\nprotocol = "spin-lock"\nrabi_hz = 330e3\n'
+        f'[sweep]\nparameter = "rabi_hz"\nstart = 315e3\nstop = 345e3\npoints = {points}\n'
+        f"[cycle]\ninteraction_time_s = {time_s}\ncount = {cycles}\n"
+        f"[trotter]\nsteps = {steps}\norder = 2\n"
+    )
+
+
+def timed(fn):
+    start = time.perf_counter()
+    out = fn()
+    return out, time.perf_counter() - start
+
+
+def line(case: str, text: str) -> None:
+    print(f"{case:<28} {text}", flush=True)
+
+
+def qutip_point(sc, rabi: float) -> np.ndarray:
+    """The same physics in QuTiP: mesolve each cycle, reset by partial trace and re-tensoring."""
+    n = sc.system.num_nuclei
+    h = hamiltonian(sc.system, rabi_hz=rabi, detuning_hz=0.0).to_matrix()
+    h_q = qutip.Qobj(2 * np.pi * h, dims=[[2] * (n + 1)] * 2)
+    ry = qutip.Qobj(nv_rotation(math.pi / 2, math.pi / 2))
+    nv0 = ry * qutip.basis(2, 0).proj() * ry.dag()
+    rho = qutip.tensor([qutip.qeye(2)] * n) / 2**n
+    opts = {"atol": 1e-10, "rtol": 1e-8, "nsteps": 10**6}
+    zs = [
+        qutip.tensor([qutip.sigmaz() if f == n - j else qutip.qeye(2) for f in range(n)])
+        for j in range(1, n + 1)
+    ]
+    out = []
+    for _ in range(sc.cycles):
+        full = qutip.tensor(rho, nv0)
+        rho = (
+            qutip.mesolve(h_q, full, [0.0, sc.protocol.interaction_time_s], options=opts)
+            .states[-1]
+            .ptrace(list(range(n)))
+        )
+        out.append([qutip.expect(z, rho) for z in zs])
+    return np.array(out)
+
+
+def case_exact_vs_qutip() -> None:
+    sc = parse_scenario(cluster(7, points=21, cycles=10))
+    result, t_ours = timed(lambda: simulate(sc, "exact"))
+    picks = [0, 10]  # QuTiP is timed on two of the 21 points
+    refs, t_ref = timed(lambda: [qutip_point(sc, sc.sweep.values[i]) for i in picks])
+    diff = max(np.max(np.abs(result.polarization[i] - r)) for i, r in zip(picks, refs, strict=True))
+    per_ours, per_ref = t_ours / 21, t_ref / len(picks)
+    line(
+        "1 exact vs QuTiP mesolve",
+        f"NV+7, 10 cycles: {per_ours:.3g} s/point vs {per_ref:.3g} "
+        f"s/point -> {per_ref / per_ours:.0f}x faster; max |dP| = {diff:.1e}",
+    )
+
+
+def case_compile_once() -> None:
+    sc = parse_scenario(cluster(6, points=21, cycles=10, steps=10))
+    values = np.asarray(sc.sweep.values)
+    sim = density_matrix_simulator()
+
+    def compiled():
+        program = compile_program(sc)
+        circuit = transpile(program.circuit, sim, optimization_level=1, seed_transpiler=1)
+        return circuit
+
+    circuit, t_compile = timed(compiled)
+    _, t_run = timed(lambda: run_program(circuit, values, cycles=10, num_nuclei=6, simulator=sim))
+
+    def per_point():
+        for v in values:
+            one = replace(sc, sweep=Sweep(sc.sweep.parameter, (float(v),)))
+            c = transpile(
+                compile_program(one).circuit, sim, optimization_level=1, seed_transpiler=1
+            )
+            run_program(c, np.array([v]), cycles=10, num_nuclei=6, simulator=sim)
+
+    _, t_rebuild = timed(per_point)
+    total = t_compile + t_run
+    line(
+        "2 compile once + bind",
+        f"NV+6, 21 pts, 10x10 steps: {total:.3g} s vs rebuild per point "
+        f"{t_rebuild:.3g} s -> {t_rebuild / total:.2f}x; compile {t_compile:.3g} s "
+        f"({100 * t_compile / total:.0f} % of the sweep), {t_run / 21:.3g} s/point after",
+    )
+
+
+def memory_bandwidth_bytes_per_s() -> float:
+    a = np.ones(2**26)  # 512 MiB
+    b = np.empty_like(a)
+    _, t = timed(lambda: np.copyto(b, a))
+    return 2 * a.nbytes / t
+
+
+def case_noisy_throughput() -> None:
+    text = cluster(6, points=21, cycles=10, steps=10) + '[processor]\ntopology = "grid:3x3"\n'
+    sc = parse_scenario(text)
+    result, t_ours = timed(lambda: simulate(sc, "noisy"))
+    proc = sc.processor
+    # baseline: level-1 transpile to the whole grid, all binds in one Aer run, no other tuning
+    base_points = 3
+    sub = replace(sc, sweep=Sweep(sc.sweep.parameter, sc.sweep.values[:base_points]))
+    logical = compile_program(sub).circuit
+    target = build_target(proc)
+    full = transpile(logical, target=target, optimization_level=1, seed_transpiler=1)
+    region = tuple(range(proc.num_qubits))
+    noisy_full = with_idle_relaxation(full, region, proc)
+    base_sim = AerSimulator(method="density_matrix", noise_model=noise_model(proc, region))
+    _, t_base = timed(
+        lambda: run_program(
+            noisy_full, np.asarray(sub.sweep.values), cycles=10, num_nuclei=6, simulator=base_sim
+        )
+    )
+    ours, base = t_ours / 21, t_base / base_points
+    mapped = mapped_for(sc)
+    gates = len(mapped.circuit.data)
+    bound = gates * 4**mapped.circuit.num_qubits * 16 / memory_bandwidth_bytes_per_s()
+    line(
+        "3 noisy sweep throughput",
+        f"NV+6, grid 3x3, idle noise: {ours:.3g} s/point vs baseline "
+        f"{base:.3g} s/point -> {base / ours:.1f}x; {ours / bound:.0f}x the memory-traffic "
+        f"bound ({bound:.2g} s/point, {gates} instructions, {mapped.circuit.num_qubits} qubits)",
+    )
+    del result
+
+
+def case_scaling() -> None:
+    sizes, times = [], []
+    for n in range(2, 11):
+        sc = parse_scenario(cluster(n, points=2, cycles=3))
+        _, t = timed(lambda sc=sc: simulate(sc, "exact"))
+        sizes.append(n)
+        times.append(t / 2)
+    slope = np.polyfit(sizes[3:], np.log2(times[3:]), 1)[0]
+    table = ", ".join(f"{n}:{t:.2g}" for n, t in zip(sizes, times, strict=True))
+    line("4a exact engine scaling", f"s/point by nuclei {table}; growth 2^({slope:.2f} n)")
+    qubits, per_k = [], []
+    for n in (7, 9, 11, 13, 15):
+        sc = parse_scenario(cluster(n, points=1, cycles=2) + "[typical]\nstates = 8\n")
+        _, t = timed(lambda sc=sc: simulate(sc, "typical"))
+        qubits.append(n + 1)
+        per_k.append(t / 8 * 1000)
+    slope = np.polyfit(qubits, np.log2(per_k), 1)[0]
+    table = ", ".join(f"{q}:{t:.3g}" for q, t in zip(qubits, per_k, strict=True))
+    line(
+        "4b typical engine scaling",
+        f"s per 1000 trajectories by qubits {table}; growth 2^({slope:.2f} q)",
+    )
+
+
+CASES = {
+    "1": case_exact_vs_qutip,
+    "2": case_compile_once,
+    "3": case_noisy_throughput,
+    "4": case_scaling,
+}
+
+if __name__ == "__main__":
+    for key in sys.argv[1:] or CASES:
+        CASES[key]()
