@@ -16,9 +16,8 @@ from qiskit import transpile
 from qiskit_aer import AerSimulator
 
 from dnpqc import compile_program, parse_scenario, simulate
-from dnpqc.engines.circuit import density_matrix_simulator, run_program
+from dnpqc.engines.circuit import density_matrix_simulator, mapped_program, run_program
 from dnpqc.engines.exact import nv_rotation
-from dnpqc.engines.noisy import mapped_for
 from dnpqc.model import hamiltonian
 from dnpqc.noise import noise_model, with_idle_relaxation
 from dnpqc.processor import build_target
@@ -55,7 +54,7 @@ def qutip_point(sc, rabi: float) -> np.ndarray:
     """The same physics in QuTiP: mesolve each cycle, reset by partial trace and re-tensoring."""
     n = sc.system.num_nuclei
     h = hamiltonian(sc.system, rabi_hz=rabi, detuning_hz=0.0).to_matrix()
-    h_q = qutip.Qobj(2 * np.pi * h, dims=[[2] * (n + 1)] * 2)
+    h_q = qutip.Qobj(2 * np.pi * h, dims=[[2] * (n + 1)] * 2).to("CSR")  # sparse Liouvillian
     ry = qutip.Qobj(nv_rotation(math.pi / 2, math.pi / 2))
     nv0 = ry * qutip.basis(2, 0).proj() * ry.dag()
     rho = qutip.tensor([qutip.qeye(2)] * n) / 2**n
@@ -148,7 +147,7 @@ def case_noisy_throughput() -> None:
         )
     )
     ours, base = t_ours / 21, t_base / base_points
-    mapped = mapped_for(sc)
+    mapped = mapped_program(sc, sc.processor)
     gates = len(mapped.circuit.data)
     bound = gates * 4**mapped.circuit.num_qubits * 16 / memory_bandwidth_bytes_per_s()
     line(

@@ -13,10 +13,9 @@ from tqdm import tqdm
 from . import codesign, qasm, report
 from .budget import gate_budget
 from .engines import ENGINES, simulate
-from .engines.circuit import compile_program
+from .engines.circuit import mapped_program
 from .errors import ScenarioError
 from .job import RunOutcome, run_scenario
-from .mapping import map_program
 from .processor import Processor, make_processor, processor_for_spec
 from .results import saturation
 from .scenario import Scenario, check_point, demo_scenario, load_scenario
@@ -267,14 +266,7 @@ def compile_text(
     """The OpenQASM 3 text of the scenario's program mapped onto `processor`."""
     if bind is not None:
         check_point(scenario, bind)
-    program = compile_program(scenario, save=True)
-    mapped = map_program(
-        program.circuit,
-        scenario.system,
-        processor,
-        optimization_level=scenario.mapping.optimization_level,
-        seed=scenario.mapping.seed,
-    )
+    mapped = mapped_program(scenario, processor, imperfections=False)
     hardware = qasm.hardware_program(mapped, measure_each_cycle=measure_each_cycle, bind=bind)
     return qasm.dumps(hardware, qasm.header_lines(scenario, mapped, gate_budget(mapped), bind))
 

@@ -19,9 +19,8 @@ from dataclasses import replace
 import numpy as np
 
 from .budget import gate_budget
-from .engines.circuit import compile_program, simulate_trotter
+from .engines.circuit import mapped_program, simulate_trotter
 from .engines.exact import simulate_exact
-from .mapping import map_program
 from .model import Nucleus, SpinSystem
 from .processor import Processor, coupling_graph
 from .protocols import Evolve
@@ -104,16 +103,8 @@ def trotter_error(scenario: Scenario, points: int = ERROR_POINTS) -> dict[str, o
 
 
 def program_budget(scenario: Scenario, processor: Processor) -> dict[str, object]:
-    """Map the scenario's program onto `processor` and return its gate budget."""
-    program = compile_program(scenario)
-    mapped = map_program(
-        program.circuit,
-        scenario.system,
-        processor,
-        optimization_level=scenario.mapping.optimization_level,
-        seed=scenario.mapping.seed,
-    )
-    return gate_budget(mapped)
+    """Map the scenario's (nominal) program onto `processor` and return its gate budget."""
+    return gate_budget(mapped_program(scenario, processor, imperfections=False))
 
 
 def steps_advice(

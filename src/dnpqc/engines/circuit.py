@@ -17,7 +17,9 @@ from qiskit import QuantumCircuit
 from qiskit_aer import AerSimulator
 
 from ..imperfections import DETUNING_ERROR, DRIVE_ERROR
+from ..mapping import MappedProgram, map_program
 from ..model import z_signs
+from ..processor import Processor
 from ..resources import density_matrix_bytes, require_memory
 from ..results import SweepResult
 from ..scenario import Scenario
@@ -70,6 +72,20 @@ def parallel_options() -> dict[str, int]:
     nothing from multithreaded state updates (measured: 1.9× faster on 2 cores)."""
     cores = os.cpu_count() or 1
     return {"max_parallel_experiments": cores, "max_parallel_threads": cores}
+
+
+def mapped_program(
+    scenario: Scenario, processor: Processor, *, imperfections: bool | None = None
+) -> MappedProgram:
+    """Compile the scenario and map it onto `processor` with the scenario's mapping settings."""
+    program = compile_program(scenario, imperfections=imperfections)
+    return map_program(
+        program.circuit,
+        scenario.system,
+        processor,
+        optimization_level=scenario.mapping.optimization_level,
+        seed=scenario.mapping.seed,
+    )
 
 
 def density_matrix_simulator(**options) -> AerSimulator:

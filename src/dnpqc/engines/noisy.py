@@ -20,7 +20,6 @@ from qiskit_aer import AerSimulator
 from qiskit_aer.library import SaveProbabilities
 
 from ..errors import ScenarioError
-from ..mapping import MappedProgram, map_program
 from ..model import z_signs
 from ..noise import noise_model, readout_factor, with_idle_relaxation
 from ..processor import Processor, make_processor
@@ -29,8 +28,8 @@ from ..results import SweepResult
 from ..scenario import Scenario
 from ..trotter import cycle_label
 from .circuit import (
-    compile_program,
     density_matrix_simulator,
+    mapped_program,
     node_columns,
     nuclear_polarizations,
     run_bound,
@@ -40,18 +39,6 @@ from .circuit import (
 
 def scenario_processor(scenario: Scenario) -> Processor:
     return scenario.processor if scenario.processor is not None else make_processor({})
-
-
-def mapped_for(scenario: Scenario, processor: Processor | None = None) -> MappedProgram:
-    """The scenario's program (with imperfection parameters if any) on its processor."""
-    program = compile_program(scenario)
-    return map_program(
-        program.circuit,
-        scenario.system,
-        processor or scenario_processor(scenario),
-        optimization_level=scenario.mapping.optimization_level,
-        seed=scenario.mapping.seed,
-    )
 
 
 def choose_method(scenario: Scenario, num_qubits: int) -> str:
@@ -100,7 +87,7 @@ def simulate_noisy(
 ) -> SweepResult:
     """Polarizations of the mapped program under processor noise (and imperfections)."""
     processor = scenario_processor(scenario)
-    mapped = mapped_for(scenario, processor)
+    mapped = mapped_program(scenario, processor)
     scale = scenario.noise.scale
     circuit = mapped.circuit
     if scenario.noise.idle:
