@@ -70,17 +70,26 @@ def test_store_resumes_only_missing_points(tmp_path):
         ResultsStore(tmp_path / STORE_NAME, digest=other.digest, engines=("exact",), shape=shape)
 
 
-def test_cli_refuses_to_overwrite_and_resumes(tmp_path):
+def test_cli_keeps_unfinished_runs_and_resumes(tmp_path):
     path = tmp_path / "s.toml"
     path.write_text(SMALL)
     out = tmp_path / "out"
-    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "1"]) == 0
-    assert main(["run", str(path), "--out", str(out), "--engines", "exact"]) == 2
-    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--resume"]) == 0
-    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--fresh"]) == 0
+    run = ["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "1"]
+    assert main(run) == 0
+    assert main(run) == 0  # a finished run is simply replaced
+    assert main([*run, "--resume"]) == 0
+    # an unfinished run of the same scenario is kept: --resume or --fresh must be said
+    sc = parse_scenario(SMALL)
+    for suffix in ("", "-wal", "-shm"):
+        (out / f"{STORE_NAME}{suffix}").unlink(missing_ok=True)
+    store = ResultsStore(out / STORE_NAME, digest=sc.digest, engines=("exact",), shape=(3, 3))
+    store.put("exact", [0], sc.sweep.values[:1], np.zeros((1, 3, 3)))
+    store.close()
+    assert main(run) == 2
+    assert main([*run, "--fresh"]) == 0
     assert main(["run", str(path), "--out", str(tmp_path / "none"), "--resume"]) == 2
     path.write_text(SMALL.replace("count = 3", "count = 2"))
-    assert main(["run", str(path), "--out", str(out), "--engines", "exact", "--resume"]) == 2
+    assert main([*run, "--resume"]) == 2  # another scenario refuses to resume
 
 
 # eight nuclei: the exact engine takes ~0.1 s per point (eigh of 512×512)

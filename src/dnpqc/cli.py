@@ -19,7 +19,7 @@ from .job import RunOutcome, run_scenario
 from .processor import Processor, make_processor, processor_for_spec
 from .results import saturation
 from .scenario import Scenario, check_point, demo_scenario, load_scenario
-from .store import STORE_NAME, ResultsStore
+from .store import STORE_NAME, ResultsStore, unfinished_run
 from .sweep import Interrupted
 
 EXIT_USAGE = 2
@@ -170,18 +170,23 @@ def _workers(value: int | None) -> int:
 
 
 def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: bool):
-    """The run's results store: new, resumed (`--resume`) or replaced (`--fresh`)."""
+    """The run's results store: new, resumed (`--resume`) or replaced.
+
+    Without `--resume`, a previous store is replaced, except an unfinished run of this same
+    scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost).
+    """
     path = out / STORE_NAME
+    if resume and not path.exists():
+        raise ScenarioError(f"--resume: no run to resume in {str(out)!r} ({STORE_NAME} missing)")
     if path.exists() and not resume:
-        if not fresh:
+        count = len(scenario.sweep.values)
+        if not fresh and unfinished_run(path, scenario.digest, count):
             raise ScenarioError(
-                f"{str(out)!r} already holds a run ({STORE_NAME}); continue it with --resume or "
-                "discard it with --fresh"
+                f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
+                "it with --resume or discard it with --fresh"
             )
         for suffix in ("", "-wal", "-shm"):
             Path(f"{path}{suffix}").unlink(missing_ok=True)
-    if resume and not path.exists():
-        raise ScenarioError(f"--resume: no run to resume in {str(out)!r} ({STORE_NAME} missing)")
     shape = (scenario.cycles, scenario.system.num_nuclei)
     return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape)
 

@@ -107,6 +107,15 @@ class ResultsStore:
         self.db.close()
 
 
-def existing_store(out_dir: Path) -> Path | None:
-    path = Path(out_dir) / STORE_NAME
-    return path if path.exists() else None
+def unfinished_run(path: Path, digest: str, points: int) -> bool:
+    """Whether the store at `path` is a run of scenario `digest` that misses some points."""
+    try:
+        with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as db:
+            meta = dict(db.execute("SELECT key, value FROM meta"))
+            if meta.get("digest") != digest:
+                return False
+            engines = [e for e in meta.get("engines", "").split(",") if e]
+            counts = dict(db.execute("SELECT engine, COUNT(*) FROM points GROUP BY engine"))
+    except sqlite3.Error:
+        return False
+    return any(counts.get(e, 0) < points for e in engines)
