@@ -120,19 +120,8 @@ def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
     path = tmp_path / "k.toml"
     path.write_text(KILLABLE)
     out = tmp_path / "killed"
-    cmd = [
-        sys.executable,
-        "-m",
-        "dnpqc.cli",
-        "run",
-        str(path),
-        "--out",
-        str(out),
-        "--engines",
-        "exact",
-        "--workers",
-        "1",
-    ]
+    args = ["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "1"]
+    cmd = [sys.executable, "-m", "dnpqc.cli", *args]
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.time() + 60
     while _rows(out / STORE_NAME) < 8 and time.time() < deadline and proc.poll() is None:
@@ -141,22 +130,7 @@ def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
     proc.wait()
     partial = _rows(out / STORE_NAME)
     assert 0 < partial < 30
-    assert (
-        main(
-            [
-                "run",
-                str(path),
-                "--out",
-                str(out),
-                "--engines",
-                "exact",
-                "--resume",
-                "--workers",
-                "1",
-            ]
-        )
-        == 0
-    )
+    assert main([*args, "--resume"]) == 0
     clean = tmp_path / "clean"
     assert (
         main(["run", str(path), "--out", str(clean), "--engines", "exact", "--workers", "1"]) == 0

@@ -54,3 +54,15 @@ def _gauss_hermite(sigma: float, points: int) -> list[tuple[float, float]]:
     x, w = np.polynomial.hermite_e.hermegauss(points)
     w = w / w.sum()
     return [(float(wi), float(sigma * xi)) for xi, wi in zip(x, w, strict=True)]
+
+
+def average_nodes(
+    per_experiment: np.ndarray, weights: np.ndarray, sampled: bool
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Weighted mean over the imperfection nodes, and its standard error when sampled."""
+    shaped = per_experiment.reshape(-1, len(weights), *per_experiment.shape[1:])
+    mean = np.tensordot(weights, shaped, axes=([0], [1]))
+    if not sampled or len(weights) < 2:
+        return mean, None
+    err = shaped.std(axis=1, ddof=1) / np.sqrt(len(weights))
+    return mean, err

@@ -16,7 +16,7 @@ import numpy as np
 from qiskit import QuantumCircuit
 from qiskit_aer import AerSimulator
 
-from ..imperfections import DETUNING_ERROR, DRIVE_ERROR
+from ..imperfections import DETUNING_ERROR, DRIVE_ERROR, average_nodes
 from ..mapping import MappedProgram, map_program
 from ..model import z_signs
 from ..processor import Processor
@@ -155,18 +155,6 @@ def node_columns(scenario: Scenario) -> tuple[dict[str, np.ndarray], np.ndarray]
         DETUNING_ERROR: np.tile([d for _, _, d in nodes], len(values)),
     }
     return columns, weights
-
-
-def average_nodes(
-    per_experiment: np.ndarray, weights: np.ndarray, sampled: bool
-) -> tuple[np.ndarray, np.ndarray | None]:
-    """Weighted mean over the imperfection nodes, and its standard error when sampled."""
-    shaped = per_experiment.reshape(-1, len(weights), *per_experiment.shape[1:])
-    mean = np.tensordot(weights, shaped, axes=([0], [1]))
-    if not sampled or len(weights) < 2:
-        return mean, None
-    err = shaped.std(axis=1, ddof=1) / np.sqrt(len(weights))
-    return mean, err
 
 
 def simulate_trotter(

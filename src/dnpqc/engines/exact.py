@@ -13,12 +13,12 @@ from collections.abc import Callable
 
 import numpy as np
 
+from ..imperfections import average_nodes
 from ..model import SpinSystem, hamiltonian, z_signs
 from ..protocols import CycleSchedule, Evolve, Pulse, perturbed
 from ..resources import require_memory
 from ..results import SweepResult
 from ..scenario import Scenario
-from .circuit import average_nodes
 
 
 class _Propagators:
