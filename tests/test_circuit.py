@@ -10,8 +10,8 @@ from qiskit.quantum_info import Operator
 
 from dnpqc import compile_program, parse_scenario, simulate
 from dnpqc.engines.circuit import density_matrix_simulator, run_program
-from dnpqc.engines.exact import _Propagators, cycle_unitary
 from dnpqc.model import hamiltonian
+from dnpqc.propagation import Propagators, cycle_unitary
 from dnpqc.results import max_difference
 from dnpqc.trotter import cycle_circuit, program_parameters
 
@@ -27,7 +27,7 @@ def _propagator_error(sc, steps, order, x):
     params = program_parameters(plan)
     circuit = cycle_circuit(plan, params)
     u = Operator(circuit.assign_parameters({params[sc.sweep.parameter]: x})).data
-    exact = cycle_unitary(_Propagators(sc.system), sc.schedule(), x)
+    exact = cycle_unitary(Propagators(sc.system), sc.schedule(), x)
     phase = np.vdot(exact.ravel(), u.ravel())
     return np.linalg.norm(u - phase / abs(phase) * exact, 2)
 
@@ -101,5 +101,5 @@ def test_exact_propagator_matches_scipy_expm(three_nuclei):
     x = sc.sweep.values[2]
     seg = sc.schedule().block[0]
     h = hamiltonian(sc.system, rabi_hz=x, detuning_hz=3e3).to_matrix()
-    got = _Propagators(sc.system).evolve(seg, x)
+    got = Propagators(sc.system).evolve(seg, x)
     assert np.allclose(got, scipy.linalg.expm(-2j * np.pi * h * 12e-6), atol=1e-10)

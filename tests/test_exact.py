@@ -9,8 +9,8 @@ from conftest import one_nucleus, pulsed_text
 from helpers import spin_lock_reference
 
 from dnpqc import parse_scenario, simulate
-from dnpqc.engines.exact import nv_rotation, reset_kraus
 from dnpqc.model import effective_perp_hz, hamiltonian, nuclear_frequency_hz
+from dnpqc.propagation import nv_rotation, reset_kraus
 from dnpqc.protocols import PULSEPOL
 
 

@@ -120,6 +120,7 @@ count = 2
 [trotter]
 steps = 5
 order = 1
+weak_every = 1
 """
 
 

@@ -75,7 +75,9 @@ def _reimport_with_saves(text: str) -> QuantumCircuit:
 def test_parses_with_reference_parser_and_uses_native_gates_on_edges(gates):
     # the OpenQASM 3 reference parser (openqasm3 package of the OpenQASM project)
     sc, mapped = _mapped(gates)
-    text = dumps(hardware_program(mapped), header_lines(sc, mapped, gate_budget(mapped)))
+    text = dumps(
+        hardware_program(mapped), header_lines(compile_program(sc), mapped, gate_budget(mapped))
+    )
     program = openqasm3.parse(text)
     allowed = set(gates.split("+")) | {"x"}
     edges = {tuple(sorted(e)) for e in mapped.processor.edges}
@@ -131,7 +133,9 @@ def test_bound_program_is_numeric_and_equal():
 
 def test_header_states_map_convention_and_budget():
     sc, mapped = _mapped()
-    text = dumps(hardware_program(mapped), header_lines(sc, mapped, gate_budget(mapped)))
+    text = dumps(
+        hardware_program(mapped), header_lines(compile_program(sc), mapped, gate_budget(mapped))
+    )
     head = text.split("OPENQASM 3.0;")[0]
     assert "'qasm-test'" in head and "U = exp(-2πi·H·t)" in head
     assert f"NV = ${mapped.initial[0]}" in head

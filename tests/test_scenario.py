@@ -25,7 +25,7 @@ def test_defaults_and_single_point():
     sc = parse_scenario(PULSED)
     assert isinstance(sc.protocol, PulsedBlock)
     assert sc.sweep.parameter == "tau_s" and sc.sweep.values == (2.8e-6,)
-    assert sc.cycles == 1 and sc.trotter.steps == 40 and sc.trotter.order == 2
+    assert sc.cycles == 1 and sc.trotter.steps == 40 and sc.trotter.order == 1
 
 
 def test_swept_key_may_be_left_out_of_drive():

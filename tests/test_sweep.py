@@ -13,8 +13,16 @@ from conftest import THREE_NUCLEI
 
 from dnpqc import ScenarioError, parse_scenario
 from dnpqc.cli import main
+from dnpqc.job import engine_options, engine_targets
 from dnpqc.store import STORE_NAME, ResultsStore
-from dnpqc.sweep import run_engines, split_tasks
+from dnpqc.sweep import run_engines as run_targets
+from dnpqc.sweep import split_tasks
+
+
+def run_engines(sc, engines, **kwargs):
+    """The scenario's engines over its sweep, as `run` does (programs compiled once)."""
+    return run_targets(engine_targets(sc, engines), engine_options(sc), **kwargs)
+
 
 SMALL = THREE_NUCLEI.replace("points = 4", "points = 9").replace("steps = 30", "steps = 6")
 

@@ -5,15 +5,14 @@ The public API, for notebooks and scripts:
 >>> from dnpqc import demo_scenario, hamiltonian, compile_program, simulate
 >>> sc = demo_scenario()
 >>> h = hamiltonian(sc.system, rabi_hz=500e3, detuning_hz=0.0)  # SparsePauliOp, Hz
->>> program = compile_program(sc)             # program.circuit: QuantumCircuit
+>>> program = compile_program(sc)             # Program: .strategy, .circuits, .mapped
 >>> result = simulate(sc, "exact")          # .polarization[point, cycle, nucleus]
 """
 
-from .engines import simulate
-from .engines.circuit import Program, compile_program
 from .errors import ScenarioError
-from .job import RunOutcome, run_scenario
+from .job import RunOutcome, compile_program, run_scenario, simulate
 from .model import Coupling, Nucleus, SpinSystem, hamiltonian
+from .program import Program, Workload
 from .results import SweepResult
 from .scenario import Scenario, demo_scenario, load_scenario, parse_scenario, scenario_from_dict
 
@@ -26,6 +25,7 @@ __all__ = [
     "ScenarioError",
     "SpinSystem",
     "SweepResult",
+    "Workload",
     "compile_program",
     "demo_scenario",
     "hamiltonian",

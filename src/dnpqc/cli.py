@@ -6,20 +6,26 @@ import argparse
 import json
 import os
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 from tqdm import tqdm
 
 from . import codesign, qasm, report
 from .budget import gate_budget
-from .engines import ENGINES, simulate
-from .engines.circuit import mapped_program
+from .engines import (
+    ENGINE_ALIASES,
+    ENGINES,
+    engine_name,
+)
 from .errors import ScenarioError
-from .job import RunOutcome, run_scenario
-from .processor import Processor, make_processor, processor_for_spec
+from .job import RunOutcome, run_scenario, scenario_processor, scenario_programs, simulate
+from .processor import Processor, processor_for_spec
+from .program import Program
 from .results import saturation
 from .scenario import Scenario, check_point, demo_scenario, load_scenario
 from .store import STORE_NAME, ResultsStore, unfinished_run
+from .strategy import Programs, approximation_error
 from .sweep import Interrupted
 
 EXIT_USAGE = 2
@@ -81,7 +87,8 @@ def _parser() -> argparse.ArgumentParser:
         "--target-error",
         type=float,
         default=None,
-        help="advise the fewest Trotter steps with Trotter error below this",
+        help="advise the fewest Trotter steps with Trotter error below this; with "
+        'strategy "auto", choose the fewest two-qubit gates with approximation error below it',
     )
     budget.add_argument(
         "--scaling",
@@ -92,13 +99,17 @@ def _parser() -> argparse.ArgumentParser:
     comp.add_argument("scenario", help="scenario TOML file")
     comp.add_argument("--processor", default=None, help="topology or preset (as for budget)")
     comp.add_argument(
-        "-o", "--output", default=None, help="write the program here (default: stdout)"
+        "-o",
+        "--output",
+        default=None,
+        help="write the program here (default: stdout); a per-value strategy (cycle-unitary) "
+        "writes one program per sweep value into this folder",
     )
     comp.add_argument(
         "--bind",
         type=float,
         default=None,
-        help="a value of the swept quantity: write a fully numeric program",
+        help="a value of the swept quantity: write one fully numeric program",
     )
     comp.add_argument(
         "--measure-each-cycle",
@@ -107,7 +118,7 @@ def _parser() -> argparse.ArgumentParser:
     )
     sweep = sub.add_parser("sweep", help="one engine over the sweep, JSON out")
     sweep.add_argument("scenario", help="scenario TOML file")
-    sweep.add_argument("--engine", default="exact", choices=tuple(ENGINES))
+    sweep.add_argument("--engine", default="exact", choices=(*ENGINES, *ENGINE_ALIASES))
     sweep.add_argument("--json", default=None, help="write the JSON here (default: stdout)")
     return parser
 
@@ -122,12 +133,11 @@ def _progress(total: int, desc: str) -> tqdm:
 
 def _engines(text: str) -> tuple[str, ...]:
     names = tuple(e.strip() for e in text.split(",") if e.strip())
-    bad = [e for e in names if e not in ENGINES]
+    known = (*ENGINES, *ENGINE_ALIASES)
+    bad = [e for e in names if e not in known]
     if bad or not names:
-        raise ScenarioError(
-            f"`--engines` must list engines from {', '.join(ENGINES)}; got {text!r}"
-        )
-    return names
+        raise ScenarioError(f"`--engines` must list engines from {', '.join(known)}; got {text!r}")
+    return tuple(dict.fromkeys(engine_name(e) for e in names))
 
 
 def _cmd_run(args) -> int:
@@ -217,9 +227,10 @@ def write_run(outcome: RunOutcome, out: Path) -> None:
 
 def _cmd_sweep(args) -> int:
     scenario = load_scenario(args.scenario)
-    bar = _progress(len(scenario.sweep.values), args.engine)
+    engine = engine_name(args.engine)
+    bar = _progress(len(scenario.sweep.values), engine)
     try:
-        result = simulate(scenario, args.engine, on_point=bar.update)
+        result = simulate(scenario, engine, on_point=bar.update)
     finally:
         bar.close()
     data = result.to_dict()
@@ -231,34 +242,64 @@ def _cmd_sweep(args) -> int:
     return 0
 
 
-def scenario_processor(scenario: Scenario, spec: str | None) -> Processor:
-    """The processor of a run: `--processor` over the scenario's `[processor]` over defaults."""
-    base = scenario.processor
-    if spec is not None:
-        return processor_for_spec(spec, base)
-    return base if base is not None else make_processor({})
-
-
 def _cmd_budget(args) -> int:
     scenario = load_scenario(args.scenario)
+    if args.target_error is not None and not args.target_error > 0:
+        raise ScenarioError(f"`--target-error` must be > 0, got {args.target_error:g}")
+    if args.target_error is not None and scenario.compile.strategy == "auto":
+        settings = replace(scenario.compile, target_error=args.target_error)
+        scenario = replace(scenario, compile=settings)
     processor = scenario_processor(scenario, args.processor)
     specs = [s.strip() for s in args.compare.split(",") if s.strip()] if args.compare else []
     compared = [processor_for_spec(s, processor) for s in specs]
-    if args.target_error is not None and not args.target_error > 0:
-        raise ScenarioError(f"`--target-error` must be > 0, got {args.target_error:g}")
-    data = codesign.program_budget(scenario, processor)
-    data["trotter_error"] = codesign.trotter_error(scenario)
+    programs = scenario_programs(scenario, args.processor)
+    job = programs.job
+    program = programs.mapped(processor, nominal=True)
+    data = codesign.program_budget(program)
+    choice = programs.choice(processor)
+    data["strategy"] = choice.strategy
+    data["strategy_reason"] = choice.reason
+    data["strategies"] = [r.to_json() for r in programs.rows(processor)]
+    data["approximation_error"] = approximation_error(program).to_json()
+    data["trotter_error"] = codesign.trotter_error(job, programs.trotter()[0])
     if compared:
-        data["compare"] = codesign.compare_processors(scenario, compared)
+        data["compare"] = codesign.compare_processors(programs, compared)
     if args.target_error is not None:
-        data["steps_advice"] = codesign.steps_advice(scenario, processor, args.target_error)
+        data["steps_advice"] = codesign.steps_advice(job, processor, args.target_error)
     if args.scaling:
-        data["scaling"] = codesign.scaling_table(scenario, processor)
+        data["scaling"] = codesign.scaling_table(job, processor)
     if args.json:
         report.write_json(Path(args.json), data)
     for line in report.budget_lines(data):
         print(line)
     return 0
+
+
+def compile_texts(
+    program: Program,
+    *,
+    bind: float | None = None,
+    measure_each_cycle: bool = False,
+) -> list[tuple[float | None, str]]:
+    """(swept value, OpenQASM 3 text) of each hardware program of a mapped, nominal program.
+
+    A trotter program gives one text (with the swept quantity as an input unless `bind`); a
+    per-value program one text per sweep value, each bound to its value.
+    """
+    texts = []
+    for value, mapped in zip(_row_values(program, bind), program.mapped, strict=True):
+        hardware = qasm.hardware_program(
+            mapped, measure_each_cycle=measure_each_cycle, bind=None if program.per_row else value
+        )
+        header = qasm.header_lines(program, mapped, gate_budget(mapped), value)
+        texts.append((value, qasm.dumps(hardware, header)))
+    return texts
+
+
+def _row_values(program: Program, bind: float | None) -> list[float | None]:
+    if program.per_row:
+        return list(program.workload.values)
+    return [bind]
 
 
 def compile_text(
@@ -268,20 +309,49 @@ def compile_text(
     bind: float | None = None,
     measure_each_cycle: bool = False,
 ) -> str:
-    """The OpenQASM 3 text of the scenario's program mapped onto `processor`."""
+    """The OpenQASM 3 text of the scenario's single program (per-value strategies need `bind`)."""
+    program = _hardware_program(scenario, processor, bind)
+    if program.per_row and len(program.mapped) != 1:
+        raise ScenarioError(
+            f"strategy {program.strategy!r} writes one program per sweep value: give `--bind "
+            "VALUE` for one program, or `-o DIR` for all of them"
+        )
+    return compile_texts(program, bind=bind, measure_each_cycle=measure_each_cycle)[0][1]
+
+
+def _hardware_program(scenario: Scenario, processor: Processor, bind: float | None) -> Program:
+    """The nominal program mapped onto `processor`; a per-value one at `bind` only."""
     if bind is not None:
         check_point(scenario, bind)
-    mapped = mapped_program(scenario, processor, imperfections=False)
-    hardware = qasm.hardware_program(mapped, measure_each_cycle=measure_each_cycle, bind=bind)
-    return qasm.dumps(hardware, qasm.header_lines(scenario, mapped, gate_budget(mapped), bind))
+    programs = Programs(scenario.compile_job(), processor)
+    if bind is not None and programs.choice().strategy == "cycle-unitary":
+        one = replace(scenario.sweep, values=(float(bind),))
+        programs = Programs(replace(scenario, sweep=one).compile_job(), processor)
+    return programs.mapped(nominal=True)
+
+
+def program_file_name(name: str, parameter: str, value: float) -> str:
+    """File name of the program at one swept value: `<name>_<parameter>_<value>.qasm`."""
+    return f"{name}_{parameter}_{value:.9g}.qasm"
 
 
 def _cmd_compile(args) -> int:
     scenario = load_scenario(args.scenario)
-    processor = scenario_processor(scenario, args.processor)
-    text = compile_text(
-        scenario, processor, bind=args.bind, measure_each_cycle=args.measure_each_cycle
-    )
+    program = _hardware_program(scenario, scenario_processor(scenario, args.processor), args.bind)
+    texts = compile_texts(program, bind=args.bind, measure_each_cycle=args.measure_each_cycle)
+    if program.per_row and args.bind is None:
+        if not args.output:
+            raise ScenarioError(
+                f"strategy {program.strategy!r} writes one program per sweep value: give "
+                "`-o DIR` for all of them, or `--bind VALUE` for one"
+            )
+        folder = Path(args.output)
+        for value, text in texts:
+            path = folder / program_file_name(scenario.name, scenario.sweep.parameter, value)
+            report.write_text(path, text)
+        print(f"programs: {len(texts)} files in {folder}")
+        return 0
+    text = texts[0][1]
     if args.output:
         report.write_text(Path(args.output), text)
         print(f"program: {args.output}")

@@ -6,15 +6,83 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from .codesign import compare_processors, program_budget
-from .engines.circuit import Program, compile_program
+from .engines import EngineOptions, engine_name, simulate_program
 from .model import effective_perp_hz, nuclear_frequency_hz
-from .processor import processor_for_spec
+from .processor import Processor, make_processor, processor_for_spec
+from .program import Program, Workload
 from .protocols import expected_resonances
 from .report import format_value
 from .results import SweepResult, best_common, max_difference, peaks, saturation
 from .scenario import Scenario
 from .store import ResultsStore
+from .strategy import Programs, StrategyRow
 from .sweep import run_engines
+
+#: Another strategy is "cheaper" when it needs at most this fraction of the two-qubit gates per
+#: cycle at an approximation error no larger than max(the chosen one's, CHEAPER_ERROR_FLOOR).
+CHEAPER_FRACTION = 0.9
+CHEAPER_ERROR_FLOOR = 1e-3
+
+
+def scenario_processor(scenario: Scenario, spec: str | None = None) -> Processor:
+    """The processor of a run: `spec` over the scenario's `[processor]` over the defaults."""
+    base = scenario.processor
+    if spec is not None:
+        return processor_for_spec(spec, base)
+    return base if base is not None else make_processor({})
+
+
+def scenario_programs(scenario: Scenario, spec: str | None = None) -> Programs:
+    """The scenario's programs, compiled once per processor (default: the run's processor)."""
+    return Programs(scenario.compile_job(), scenario_processor(scenario, spec))
+
+
+def engine_targets(
+    scenario: Scenario, engines: tuple[str, ...], programs: Programs | None = None
+) -> dict[str, Program | Workload]:
+    """What each engine runs: the logical program (trotter), the mapped one (noisy), or the
+    workload (exact, typical); programs compiled once, from `programs`."""
+    programs = programs or scenario_programs(scenario)
+    targets: dict[str, Program | Workload] = {}
+    for name in engines:
+        engine = engine_name(name)
+        if engine == "trotter":
+            targets[engine] = programs.logical()
+        elif engine == "noisy":
+            targets[engine] = programs.mapped()
+        else:
+            targets[engine] = scenario.workload()
+    return targets
+
+
+def engine_options(scenario: Scenario) -> EngineOptions:
+    return EngineOptions(scenario.noise, scenario.typical)
+
+
+def compile_program(scenario: Scenario, processor: Processor | None = None) -> Program:
+    """The scenario's logical program (strategy resolved on `processor`, default the run's)."""
+    programs = scenario_programs(scenario)
+    return programs.logical(processor)
+
+
+def simulate(
+    scenario: Scenario, engine: str = "exact", *, on_point: Callable[[], None] | None = None
+) -> SweepResult:
+    """Run one engine over the scenario's sweep (compiling and mapping what it needs)."""
+    target = engine_targets(scenario, (engine,))[engine_name(engine)]
+    return simulate_program(target, engine, engine_options(scenario), on_point=on_point)
+
+
+def cheaper_strategies(chosen: StrategyRow, rows: list[StrategyRow]) -> list[StrategyRow]:
+    """Rows that cost clearly fewer two-qubit gates than `chosen` at no larger error."""
+    ceiling = max(chosen.approximation_error.value, CHEAPER_ERROR_FLOOR)
+    return [
+        r
+        for r in rows
+        if r.strategy != chosen.strategy
+        and r.two_qubit_per_cycle <= CHEAPER_FRACTION * chosen.two_qubit_per_cycle
+        and r.approximation_error.value <= ceiling
+    ]
 
 
 @dataclass(frozen=True)
@@ -26,6 +94,7 @@ class RunOutcome:
     program: Program
     budget: dict[str, object] | None = None
     compare: list[dict[str, object]] | None = None
+    strategies: tuple[StrategyRow, ...] = ()
 
     @property
     def reference(self) -> SweepResult:
@@ -95,9 +164,51 @@ class RunOutcome:
         ref = self.reference.engine
         return [self.comparison(e) for e in self.results if e != ref and ref == "exact"]
 
+    def compiler(self) -> dict[str, object]:
+        """The compiled (logical) program: strategy, settings, layering, gate counts."""
+        program, circuit = self.program, self.program.circuit
+        out: dict[str, object] = {"strategy": program.strategy, "program": program.describe()}
+        if program.choice:
+            out["choice"] = program.choice
+        if program.plan is not None:
+            out.update(
+                {
+                    "trotter_steps": program.trotter.steps,
+                    "trotter_order": program.trotter.order,
+                    "weak_every": program.plan.weak_every,
+                    **program.plan.layering(),
+                }
+            )
+        else:
+            out["programs"] = len(program.circuits)
+        out.update(
+            {
+                "qubits": circuit.num_qubits,
+                "gate_counts": {k: int(v) for k, v in circuit.count_ops().items()},
+                "depth": circuit.depth(),
+            }
+        )
+        return out
+
+    def cheaper_note(self) -> str | None:
+        """A line naming a cheaper strategy on the scenario's processor, if there is one."""
+        chosen = [r for r in self.strategies if r.strategy == self.program.strategy]
+        if not chosen:
+            return None
+        better = cheaper_strategies(chosen[0], list(self.strategies))
+        if not better:
+            return None
+        best = min(better, key=lambda r: r.two_qubit_per_cycle)
+        return (
+            f"  note: strategy {best.strategy!r} would be cheaper here: "
+            f"{best.two_qubit_per_cycle:.0f} two-qubit gates per cycle instead of "
+            f"{chosen[0].two_qubit_per_cycle:.0f}, approximation error "
+            f"{best.approximation_error.value:.2g}, success estimate {best.success_estimate:.3g} "
+            f'(set [compile] strategy = "{best.strategy}")'
+        )
+
     def to_json(self) -> dict[str, object]:
         sc = self.scenario
-        circuit = self.program.circuit
         out: dict[str, object] = {
             "scenario": {
                 "name": sc.name,
@@ -129,14 +240,7 @@ class RunOutcome:
             "expected_resonances": self.resonances(),
             "engines": {name: res.to_dict() for name, res in self.results.items()},
             "analysis": {name: self.analysis(name) for name in self.results},
-            "compiler": {
-                "trotter_steps": sc.trotter.steps,
-                "trotter_order": sc.trotter.order,
-                **self.program.plan.layering(),
-                "qubits": circuit.num_qubits,
-                "gate_counts": {k: int(v) for k, v in circuit.count_ops().items()},
-                "depth": circuit.depth(),
-            },
+            "compiler": self.compiler(),
         }
         if "exact" in self.results and "trotter" in self.results:
             out["trotter_error"] = max_difference(self.results["exact"], self.results["trotter"])
@@ -176,9 +280,10 @@ class RunOutcome:
             f"  saturation there: mean |P| -> {sat['mean_saturation']:.3f}; "
             f"{sat['cycles']} cycles reach {sat['fraction']:.0%} of it{note}"
         )
+        lines.append(f"  program: {self.program.describe()}")
         if "exact" in self.results and "trotter" in self.results:
             err = max_difference(self.results["exact"], self.results["trotter"])
-            lines.append(f"  Trotter error (max |P_trotter - P_exact|): {err:.2e}")
+            lines.append(f"  program error (max |P_program - P_exact|): {err:.2e}")
         for comp in self.comparisons():
             if comp["engine"] == "trotter":
                 continue
@@ -200,6 +305,9 @@ class RunOutcome:
                 f"{per['swaps']:.0f} SWAPs per cycle, {total['duration_s'] * 1e6:.4g} µs in all, "
                 f"success estimate {total['success_estimate']:.3g}"
             )
+        note = self.cheaper_note()
+        if note:
+            lines.append(note)
         return lines
 
 
@@ -214,15 +322,27 @@ def run_scenario(
 ) -> RunOutcome:
     """Simulate `scenario` with each engine (points missing from `store` only), then analyse.
 
-    `on_point(engine, k)` reports k more finished points.
+    Every circuit engine runs the program compiled once for the scenario's processor (the
+    default processor without a `[processor]` table). `on_point(engine, k)` reports k more
+    finished points.
     """
+    programs = scenario_programs(scenario)
     results = run_engines(
-        scenario, engines, store=store, workers=workers, scheduler=scheduler, on_point=on_point
+        engine_targets(scenario, engines, programs),
+        engine_options(scenario),
+        store=store,
+        workers=workers,
+        scheduler=scheduler,
+        on_point=on_point,
     )
     budget = compare = None
+    rows: tuple[StrategyRow, ...] = ()
     if scenario.processor is not None:
-        budget = program_budget(scenario, scenario.processor)
+        budget = program_budget(programs.mapped(nominal=True))
+        rows = tuple(programs.rows())
+        budget["strategy"] = programs.choice().strategy
+        budget["strategies"] = [r.to_json() for r in rows]
         others = [processor_for_spec(s, scenario.processor) for s in scenario.processor.compare]
         if others:
-            compare = compare_processors(scenario, [scenario.processor, *others])
-    return RunOutcome(scenario, results, compile_program(scenario), budget, compare)
+            compare = compare_processors(programs, [scenario.processor, *others])
+    return RunOutcome(scenario, results, programs.logical(), budget, compare, rows)

@@ -38,6 +38,14 @@ DEFAULT_OPTIMIZATION_LEVEL = 2
 
 
 @dataclass(frozen=True)
+class MappingSettings:
+    """Transpiler settings for mapping onto a processor."""
+
+    optimization_level: int = DEFAULT_OPTIMIZATION_LEVEL
+    seed: int = DEFAULT_SEED
+
+
+@dataclass(frozen=True)
 class MappedProgram:
     """A program routed and translated onto `region` of `processor`.
 
@@ -176,11 +184,40 @@ def map_program(
     *,
     optimization_level: int = DEFAULT_OPTIMIZATION_LEVEL,
     seed: int = DEFAULT_SEED,
+    fixed: MappedProgram | None = None,
 ) -> MappedProgram:
-    """Route and translate `logical` (qubit 0 NV, 1..n nuclei) onto `processor`."""
+    """Route and translate `logical` (qubit 0 NV, 1..n nuclei) onto `processor`.
+
+    With `fixed`, the region and initial layout of that mapping are kept (no competition), so
+    programs of one sweep share their physical qubits.
+    """
     size = logical.num_qubits
     check_fits(processor, size)
+    if fixed is not None:
+        region = list(fixed.region)
+        local = {v: i for i, v in enumerate(region)}
+        layout = [local[v] for v in fixed.initial]
+        circuit, swaps = _transpile(
+            logical, build_target(processor, region), layout, optimization_level, seed
+        )
+        results = {fixed.layout_method: (circuit, swaps, region)}
+    else:
+        results = _candidates(logical, system, processor, optimization_level, seed)
+    counts = {name: _two_qubit_count(c) for name, (c, _, _) in results.items()}
+    winner = min(counts, key=lambda k: (counts[k], not k.startswith("interaction")))
+    circuit, swaps, region = results[winner]
+    layout = circuit.layout
+    initial = tuple(region[i] for i in layout.initial_index_layout(filter_ancillas=True))
+    final = tuple(region[i] for i in layout.final_index_layout(filter_ancillas=True))
+    segments = len(_segment_counts(circuit, "barrier"))
+    swaps = tuple(swaps + [0] * (segments - len(swaps))) if swaps else (0,) * segments
+    return MappedProgram(processor, tuple(region), circuit, initial, final, winner, counts, swaps)
+
+
+def _candidates(logical, system, processor, level, seed) -> dict[str, tuple]:
+    """Both layouts on both regions (hub-first and compact): name → (circuit, swaps, region)."""
     graph = processor.graph()
+    size = logical.num_qubits
     regions = {"hub": choose_region(graph, size, hub_first=True)}
     compact = choose_region(graph, size, hub_first=False)
     if sorted(compact) != sorted(regions["hub"]):
@@ -191,14 +228,6 @@ def map_program(
         local = {v: i for i, v in enumerate(region)}
         ours = [local[v] for v in interaction_layout(system, graph, region)]
         for layout_name, layout in (("interaction", ours), ("qiskit", None)):
-            circuit, swaps = _transpile(logical, target, layout, optimization_level, seed)
+            circuit, swaps = _transpile(logical, target, layout, level, seed)
             results[f"{layout_name}/{region_name}"] = (circuit, swaps, region)
-    counts = {name: _two_qubit_count(c) for name, (c, _, _) in results.items()}
-    winner = min(counts, key=lambda k: (counts[k], not k.startswith("interaction")))
-    circuit, swaps, region = results[winner]
-    layout = circuit.layout
-    initial = tuple(region[i] for i in layout.initial_index_layout(filter_ancillas=True))
-    final = tuple(region[i] for i in layout.final_index_layout(filter_ancillas=True))
-    segments = len(_segment_counts(circuit, "barrier"))
-    swaps = tuple(swaps + [0] * (segments - len(swaps))) if swaps else (0,) * segments
-    return MappedProgram(processor, tuple(region), circuit, initial, final, winner, counts, swaps)
+    return results

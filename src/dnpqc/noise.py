@@ -23,6 +23,9 @@ probabilities, so it is applied to them (and a `ReadoutError` is in the model fo
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import Literal
+
 from qiskit import QuantumCircuit
 from qiskit.quantum_info import average_gate_fidelity
 from qiskit_aer.noise import (
@@ -38,6 +41,23 @@ from .budget import AsapClock
 from .processor import VIRTUAL_GATES, Processor
 
 INSTANT = frozenset({"barrier", "save_probabilities", "save_density_matrix"})
+
+
+@dataclass(frozen=True)
+class NoiseSettings:
+    """How the noisy engine simulates processor noise.
+
+    `scale` multiplies every error rate and every decoherence rate (1/T1, 1/T2); `method` is
+    `auto` (density matrix when it fits in memory, else trajectories), `density_matrix` or
+    `trajectories`; `trajectories` shots per point are sampled with `seed`; `idle` adds T1/T2
+    relaxation on idle qubits.
+    """
+
+    scale: float = 1.0
+    method: Literal["auto", "density_matrix", "trajectories"] = "auto"
+    trajectories: int = 256
+    seed: int = 0
+    idle: bool = True
 
 
 def relaxation(

@@ -20,8 +20,8 @@ from qiskit import ClassicalRegister, QuantumCircuit, qasm3, transpile
 
 from .mapping import MappedProgram
 from .processor import build_target
+from .program import Program
 from .report import write_text
-from .scenario import Scenario
 
 READOUT = "nuclei"
 
@@ -69,17 +69,18 @@ def hardware_program(
 
 
 def header_lines(
-    scenario: Scenario, mapped: MappedProgram, budget: dict, bound: float | None = None
+    program: Program, mapped: MappedProgram, budget: dict, bound: float | None = None
 ) -> list[str]:
-    """Comment lines: scenario, convention, processor, qubit map and budget summary."""
+    """Comment lines: scenario, strategy, convention, processor, qubit map and budget summary."""
+    work = program.workload
     proc = budget["processor"]
     q = budget["qubits"]
     per, total = budget["per_cycle"], budget["total"]
-    parameter = scenario.sweep.parameter
+    parameter = work.parameter
     lines = [
-        f"dnpqc program for scenario {scenario.name!r} (content hash {scenario.digest}):",
-        f"  {scenario.protocol.kind}, {scenario.system.num_nuclei} nuclei, {scenario.cycles} "
-        f"cycles, {scenario.trotter.steps} Trotter steps of order {scenario.trotter.order}.",
+        f"dnpqc program for scenario {work.name!r} (content hash {work.digest}):",
+        f"  {work.protocol.kind}, {work.system.num_nuclei} nuclei, {work.cycles} cycles; "
+        f"strategy {program.describe()}.",
         "Model: H/h in Hz, U = exp(-2πi·H·t); NV qubit {|0> = m_s 0, |1> = m_s -1}, nuclei",
         "  |0> = spin up along B0; the nuclei start maximally mixed (H, CX to the NV, NV reset).",
         "  Readout bit j = nucleus j+1; its polarization is P = 1 - 2·mean(bit).",
@@ -88,7 +89,7 @@ def header_lines(
         f"Qubit map (physical): NV = ${q['nv']}",
     ]
     for label, first, last in zip(
-        scenario.system.labels, q["nuclei_initial"], q["nuclei_final"], strict=True
+        work.system.labels, q["nuclei_initial"], q["nuclei_final"], strict=True
     ):
         lines.append(f"  {label} = ${first} at the start, ${last} at the end")
     lines += [

@@ -242,6 +242,9 @@ def budget_lines(data: dict) -> list[str]:
     lines += _table(["", "per cycle", "total"], rows)
     te = data["trotter_error"]
     lines.append(f"Trotter error: {te['value']:.3g} ({te['method']}, {te['points']} points)")
+    if "strategies" in data:
+        lines += ["", f"strategy: {data['strategy']} ({data.get('strategy_reason', '')})"]
+        lines += strategy_table(data["strategies"])
     if "compare" in data:
         header = [
             "processor",
@@ -303,6 +306,24 @@ def budget_lines(data: dict) -> list[str]:
             *_table(header, rows),
         ]
     return lines
+
+
+def strategy_table(rows: list[dict]) -> list[str]:
+    """The strategies side by side: steps, two-qubit gates per cycle, errors, success."""
+    header = ["strategy", "steps", "2q/cycle", "approx err", "success", "err+1-S"]
+    cells = [
+        [
+            r["strategy"],
+            "-" if r["steps"] is None else str(r["steps"]),
+            f"{r['two_qubit_per_cycle']:.0f}",
+            f"{r['approximation_error']:.2g}"
+            + ("" if r["error_method"] == "measured" else " (bound)"),
+            f"{r['success_estimate']:.3g}",
+            f"{r['total_error']:.3g}",
+        ]
+        for r in rows
+    ]
+    return _table(header, cells)
 
 
 def budget_figure(rows: list[dict]):

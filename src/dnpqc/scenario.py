@@ -16,11 +16,13 @@ from typing import Any
 
 import numpy as np
 
+from .engines.typical import TypicalSettings
 from .errors import ScenarioError
 from .imperfections import Imperfections
 from .lattice import dipolar_from_positions, hyperfine_from_position, random_cluster_nm
-from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED
+from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED, MappingSettings
 from .model import Coupling, Nucleus, SpinSystem
+from .noise import NoiseSettings
 from .processor import (
     NATIVE_GATE_SETS,
     PRESETS,
@@ -28,6 +30,14 @@ from .processor import (
     check_fits,
     make_processor,
     processor_for_spec,
+)
+from .program import (
+    STRATEGIES,
+    CompileJob,
+    CompileSettings,
+    TrotterSettings,
+    Workload,
+    check_synthesis_size,
 )
 from .protocols import (
     AXIS_PHASES_RAD,
@@ -54,48 +64,6 @@ class Sweep:
 
 
 @dataclass(frozen=True)
-class TrotterSettings:
-    """Trotter steps per cycle (pulsed: per free window), order 1 or 2, steps per finite pulse."""
-
-    steps: int = 40
-    order: int = 2
-    pulse_steps: int = 2
-
-
-@dataclass(frozen=True)
-class MappingSettings:
-    """Transpiler settings for mapping onto a processor."""
-
-    optimization_level: int = DEFAULT_OPTIMIZATION_LEVEL
-    seed: int = DEFAULT_SEED
-
-
-@dataclass(frozen=True)
-class NoiseSettings:
-    """How the noisy engine simulates processor noise.
-
-    `scale` multiplies every error rate and every decoherence rate (1/T1, 1/T2); `method` is
-    `auto` (density matrix when it fits in memory, else trajectories), `density_matrix` or
-    `trajectories`; `trajectories` shots per point are sampled with `seed`; `idle` adds T1/T2
-    relaxation on idle qubits.
-    """
-
-    scale: float = 1.0
-    method: str = "auto"
-    trajectories: int = 256
-    seed: int = 0
-    idle: bool = True
-
-
-@dataclass(frozen=True)
-class TypicalSettings:
-    """The typicality engine: random nuclear states per point (and node), and their seed."""
-
-    states: int = 32
-    seed: int = 0
-
-
-@dataclass(frozen=True)
 class Scenario:
     """Everything one run needs: the spins, the drive, the sweep, the cycles, the compiler."""
 
@@ -111,6 +79,7 @@ class Scenario:
     imperfections: Imperfections = field(default_factory=Imperfections)
     noise: NoiseSettings = field(default_factory=NoiseSettings)
     typical: TypicalSettings = field(default_factory=TypicalSettings)
+    compile: CompileSettings = field(default_factory=CompileSettings)
 
     def schedule(self) -> CycleSchedule:
         """One cycle's segments with the swept quantity as the variable."""
@@ -119,6 +88,23 @@ class Scenario:
             swept=self.sweep.parameter,
             steps=self.trotter.steps,
             pulse_steps=self.trotter.pulse_steps,
+        )
+
+    def compile_job(self) -> CompileJob:
+        """The compile stage's input: workload and settings."""
+        return CompileJob(self.workload(), self.trotter, self.compile, self.mapping)
+
+    def workload(self) -> Workload:
+        """The physics the programs compute (the compile stage's input)."""
+        return Workload(
+            name=self.name,
+            digest=self.digest,
+            system=self.system,
+            protocol=self.protocol,
+            parameter=self.sweep.parameter,
+            values=self.sweep.values,
+            cycles=self.cycles,
+            imperfections=self.imperfections,
         )
 
 
@@ -233,6 +219,7 @@ _TOP_KEYS = (
     "imperfections",
     "noise",
     "typical",
+    "compile",
 )
 
 
@@ -298,6 +285,9 @@ def scenario_from_dict(
         seed=typical_table.integer("seed", 0, minimum=0),
     )
     typical_table.finish()
+    compile_settings = _read_compile(top.table("compile") or _Table({}, "compile"))
+    if compile_settings.strategy == "cycle-unitary":
+        check_synthesis_size(system.num_qubits)
     if not digest:
         digest = _digest(repr(sorted(data.items())))
     return Scenario(
@@ -313,7 +303,18 @@ def scenario_from_dict(
         imperfections,
         noise,
         typical,
+        compile_settings,
     )
+
+
+def _read_compile(t: _Table) -> CompileSettings:
+    """`[compile]`: strategy (trotter | cycle-unitary | auto) and, for auto, `target_error`."""
+    out = CompileSettings(
+        strategy=t.string("strategy", "trotter", choices=STRATEGIES),
+        target_error=t.number("target_error", None, minimum=0.0, strict=True),
+    )
+    t.finish()
+    return out
 
 
 def _read_imperfections(t: _Table | None) -> Imperfections:
@@ -546,10 +547,12 @@ def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
 
 
 def _read_trotter(t: _Table) -> TrotterSettings:
+    defaults = TrotterSettings()
     settings = TrotterSettings(
-        steps=t.integer("steps", 40),
-        order=t.integer("order", 2),
-        pulse_steps=t.integer("pulse_steps", 2),
+        steps=t.integer("steps", defaults.steps),
+        order=t.integer("order", defaults.order),
+        pulse_steps=t.integer("pulse_steps", defaults.pulse_steps),
+        weak_every=t.integer("weak_every", defaults.weak_every, minimum=1),
     )
     if settings.order not in (1, 2):
         raise ScenarioError(f"`trotter.order` must be 1 or 2, got {settings.order}")

@@ -13,15 +13,16 @@ import math
 import multiprocessing
 from collections.abc import Callable
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-from dataclasses import replace
 
 import numpy as np
 
-from .engines import simulate
+from .engines import EngineOptions, simulate_program
 from .errors import ScenarioError
+from .program import Program, Workload
 from .results import SweepResult
-from .scenario import Scenario, Sweep
 from .store import ResultsStore
+
+Target = Program | Workload
 
 #: Points per task at most, per engine: circuit engines compile once per task.
 TASK_POINTS = {"exact": 4, "typical": 2, "trotter": 32, "noisy": 32}
@@ -35,11 +36,9 @@ class Interrupted(Exception):
         self.stored, self.total = stored, total
 
 
-def compute_points(scenario: Scenario, engine: str, indices: list[int]):
+def compute_points(target: Target, engine: str, indices: list[int], options: EngineOptions):
     """Run `engine` on the sweep points `indices` only: (indices, polarization, stderr)."""
-    values = tuple(scenario.sweep.values[i] for i in indices)
-    sub = replace(scenario, sweep=Sweep(scenario.sweep.parameter, values))
-    result = simulate(sub, engine)
+    result = simulate_program(target.subset(indices), engine, options)
     return indices, result.polarization, result.stderr
 
 
@@ -91,17 +90,21 @@ def _wait_any(futures: set):
 
 
 def run_engines(
-    scenario: Scenario,
-    engines: tuple[str, ...],
+    targets: dict[str, Target],
+    options: EngineOptions | None = None,
     *,
     store: ResultsStore | None = None,
     workers: int = 1,
     scheduler: str | None = None,
     on_point: Callable[[str, int], None] | None = None,
 ) -> dict[str, SweepResult]:
-    """Every engine over the sweep; only points missing from `store` are computed."""
-    count = len(scenario.sweep.values)
-    shape = (scenario.cycles, scenario.system.num_nuclei)
+    """Every engine over the sweep of its program (or workload); only points missing from
+    `store` are computed."""
+    options = options or EngineOptions()
+    engines = tuple(targets)
+    work = _workload(next(iter(targets.values())))
+    count = len(work.values)
+    shape = (work.cycles, work.system.num_nuclei)
     memory = {e: (np.full((count, *shape), np.nan), None) for e in engines}
     tasks = []
     for engine in engines:
@@ -116,7 +119,7 @@ def run_engines(
     def finish(engine: str, indices, pol, err) -> None:
         nonlocal stored
         if store is not None:
-            store.put(engine, indices, [scenario.sweep.values[i] for i in indices], pol, err)
+            store.put(engine, indices, [work.values[i] for i in indices], pol, err)
         _keep(memory, engine, indices, pol, err)
         stored += len(indices)
         if on_point is not None:
@@ -125,18 +128,24 @@ def run_engines(
     try:
         if scheduler is None and (workers <= 1 or len(tasks) <= 1):
             for engine, chunk in tasks:
-                finish(engine, *compute_points(scenario, engine, chunk))
+                finish(engine, *compute_points(targets[engine], engine, chunk, options))
         else:
-            _run_parallel(scenario, tasks, _executor(workers, scheduler), finish)
+            _run_parallel(targets, options, tasks, _executor(workers, scheduler), finish)
     except KeyboardInterrupt:
         raise Interrupted(stored, total) from None
-    return {e: _result(scenario, e, store, memory) for e in engines}
+    return {e: _result(work, e, store, memory) for e in engines}
 
 
-def _run_parallel(scenario, tasks, executor, finish) -> None:
+def _workload(target: Target) -> Workload:
+    return target.workload if isinstance(target, Program) else target
+
+
+def _run_parallel(targets, options, tasks, executor, finish) -> None:
     """Submit every task, then commit each as it completes (in completion order)."""
     try:
-        pending = {executor.submit(compute_points, scenario, e, chunk): e for e, chunk in tasks}
+        pending = {
+            executor.submit(compute_points, targets[e], e, chunk, options): e for e, chunk in tasks
+        }
         remaining = set(pending)
         while remaining:
             finished, remaining = _wait_any(remaining)
@@ -156,14 +165,9 @@ def _keep(memory, engine, indices, pol, err) -> None:
     memory[engine] = (full_pol, full_err)
 
 
-def _result(scenario, engine, store, memory) -> SweepResult:
-    count = len(scenario.sweep.values)
+def _result(work: Workload, engine, store, memory) -> SweepResult:
+    count = len(work.values)
     pol, err = store.load(engine, count) if store is not None else memory[engine]
     return SweepResult(
-        engine,
-        scenario.sweep.parameter,
-        np.asarray(scenario.sweep.values),
-        scenario.system.labels,
-        pol,
-        err,
+        engine, work.parameter, np.asarray(work.values), work.system.labels, pol, err
     )

@@ -24,6 +24,7 @@ from collections import defaultdict
 from dataclasses import dataclass
 
 import networkx as nx
+import numpy as np
 from qiskit.circuit import Parameter, QuantumCircuit
 from qiskit_aer.library import SaveProbabilities
 
@@ -31,6 +32,9 @@ from .expr import Poly
 from .imperfections import DETUNING_ERROR, DRIVE_ERROR
 from .model import SpinSystem, hamiltonian
 from .protocols import CycleSchedule, Evolve, Pulse
+
+#: A nucleus–nucleus term is weak when |h| ≤ this fraction of the smallest NV–nucleus term.
+WEAK_FRACTION = 0.25
 
 
 @dataclass(frozen=True)
@@ -82,6 +86,7 @@ class ProgramPlan:
     cycle: CyclePlan
     parameter_names: tuple[str, ...]
     pair_colours: dict[tuple[int, int], int]
+    weak_every: int = 1
 
     def layering(self) -> dict[str, object]:
         """Counts per cycle: layers, rotations by Pauli, two-qubit layers and colours."""
@@ -181,6 +186,27 @@ def step_layers(
     return layers
 
 
+def weak_keys(terms: dict[tuple[str, tuple[int, ...]], Poly]) -> set[tuple[str, tuple[int, ...]]]:
+    """Nucleus–nucleus terms far below every NV–nucleus term (|h| ≤ WEAK_FRACTION of the
+    smallest): the dipolar couplings against the hyperfine ones. Sizes at the variables' zero."""
+
+    def size(poly: Poly) -> float:
+        return max((abs(c) for _, c in poly.terms), default=0.0)
+
+    nv = [size(p) for k, p in terms.items() if len(k[1]) == 2 and 0 in k[1]]
+    if not nv:
+        return set()
+    limit = WEAK_FRACTION * min(nv)
+    return {k for k, p in terms.items() if len(k[1]) == 2 and 0 not in k[1] and size(p) <= limit}
+
+
+def _step(terms, dt: Poly, order: int, colours) -> list[Layer]:
+    if order == 1:
+        return step_layers(terms, dt, colours)
+    half = step_layers(terms, dt * 0.5, colours)
+    return half + half[::-1]
+
+
 def _segment_operations(
     system: SpinSystem,
     segment: Evolve,
@@ -188,15 +214,30 @@ def _segment_operations(
     colours: dict[tuple[int, int], int],
     variable: str,
     imperfections: bool,
+    weak_every: int = 1,
 ) -> list[Layer]:
+    """Steps of one window; weak terms (see `weak_keys`) once per group of `weak_every` steps.
+
+    A group of m steps is W(m·dt)·S^m (order 1) or W(m·dt/2)·S^m·W(m·dt/2) (order 2, a Strang
+    splitting of strong and weak parts); the last group holds the remaining steps.
+    """
     terms = pauli_terms(system, segment, variable, imperfections)
     dt = Poly.from_linear(segment.duration_s, variable) * (1.0 / segment.steps)
-    if order == 1:
-        step = step_layers(terms, dt, colours)
-    else:
-        half = step_layers(terms, dt * 0.5, colours)
-        step = half + half[::-1]
-    return step * segment.steps
+    weak = weak_keys(terms) if weak_every > 1 else set()
+    if not weak:
+        return _step(terms, dt, order, colours) * segment.steps
+    strong = {k: v for k, v in terms.items() if k not in weak}
+    slow = {k: v for k, v in terms.items() if k in weak}
+    step = _step(strong, dt, order, colours)
+    operations: list[Layer] = []
+    for start in range(0, segment.steps, weak_every):
+        m = min(weak_every, segment.steps - start)
+        if order == 1:
+            operations += step * m + step_layers(slow, dt * m, colours)
+        else:
+            edge = step_layers(slow, dt * (0.5 * m), colours)
+            operations += edge + step * m + edge
+    return operations
 
 
 def _pulse_operation(pulse: Pulse, imperfections: bool) -> PulseRotation:
@@ -231,11 +272,13 @@ def plan_program(
     order: int,
     parameter_name: str,
     imperfections: bool = False,
+    weak_every: int = 1,
 ) -> ProgramPlan:
     """Trotter plan of `cycles` cycles of `schedule` on NV + nuclei.
 
     `parameter_name` is the swept variable; with `imperfections`, the angles also depend on the
-    drive and detuning errors (variables `DRIVE_ERROR`, `DETUNING_ERROR`).
+    drive and detuning errors (variables `DRIVE_ERROR`, `DETUNING_ERROR`). `weak_every` = k
+    applies the weak terms once every k steps, for k·dt.
     """
     pairs = [(0, j) for j in range(1, system.num_qubits)]
     pairs += [(c.first + 1, c.second + 1) for c in system.couplings]
@@ -246,11 +289,55 @@ def plan_program(
             operations.append(_pulse_operation(segment, imperfections))
         else:
             operations.extend(
-                _segment_operations(system, segment, order, colours, parameter_name, imperfections)
+                _segment_operations(
+                    system, segment, order, colours, parameter_name, imperfections, weak_every
+                )
             )
     cycle = CyclePlan(tuple(merge_layers(operations)))
     names = (parameter_name, DRIVE_ERROR, DETUNING_ERROR) if imperfections else (parameter_name,)
-    return ProgramPlan(system.num_qubits, cycles, cycle, names, colours)
+    return ProgramPlan(system.num_qubits, cycles, cycle, names, colours, weak_every)
+
+
+def _pauli_action(pauli: str, qubits: tuple[int, ...], dim: int) -> tuple[np.ndarray, np.ndarray]:
+    """P as (source row, phase): (P·M)[i] = phase[i]·M[source[i]] (qubit q = bit q of i)."""
+    index = np.arange(dim)
+    flip = sum(1 << q for p, q in zip(pauli, qubits, strict=True) if p in "XY")
+    source = index ^ flip
+    phase = np.ones(dim, dtype=np.complex128)
+    for p, q in zip(pauli, qubits, strict=True):
+        bit = (source >> q) & 1
+        if p == "Z":
+            phase *= 1 - 2 * bit
+        elif p == "Y":
+            phase *= 1j * (1 - 2 * bit)  # Y|0> = i|1>, Y|1> = -i|0>
+    return source, phase
+
+
+def plan_unitary(plan: ProgramPlan, values: dict[str, float]) -> np.ndarray:
+    """The numeric unitary of one planned cycle with every variable set from `values`.
+
+    Each rotation acts as cos(θ/2)·M - i·sin(θ/2)·P·M on the running product; an ideal pulse
+    is R_φ(θ) on qubit 0. Used to measure Trotter errors without a circuit simulator.
+    """
+    dim = 2**plan.num_qubits
+    u = np.eye(dim, dtype=np.complex128)
+    actions: dict[tuple[str, tuple[int, ...]], tuple[np.ndarray, np.ndarray]] = {}
+    for op in plan.cycle.operations:
+        if isinstance(op, PulseRotation):
+            theta, phi = op.angle.at(values), op.phase_rad
+            c, s = math.cos(theta / 2), math.sin(theta / 2)
+            e = complex(math.cos(phi), math.sin(phi))
+            rot = np.array([[c, -1j * s / e], [-1j * s * e, c]])
+            u = np.einsum("ab,ibj->iaj", rot, u.reshape(dim // 2, 2, dim)).reshape(dim, dim)
+            continue
+        for r in op.rotations:
+            key = (r.pauli, r.qubits)
+            if key not in actions:
+                actions[key] = _pauli_action(r.pauli, r.qubits, dim)
+            source, phase = actions[key]
+            theta = r.angle.at(values)
+            u = math.cos(theta / 2) * u - 1j * math.sin(theta / 2) * (phase[:, None] * u[source])
+    return u
 
 
 def _append_rotation(
@@ -301,23 +388,27 @@ def cycle_label(cycle: int) -> str:
     return f"cycle_{cycle}"
 
 
-def build_circuit(plan: ProgramPlan, *, save: bool = True) -> QuantumCircuit:
-    """The logical circuit of `plan`: qubit 0 the NV, qubits 1..n the nuclei.
+def build_circuit(plan: ProgramPlan) -> QuantumCircuit:
+    """The logical circuit of `plan` (see `assemble_program`)."""
+    return assemble_program(cycle_circuit(plan, program_parameters(plan)), plan.cycles)
 
-    With `save`, the probabilities of the nuclear qubits (ordered 1..n) are saved after each
-    cycle under `cycle_label(c)` (Aer `save_probabilities`, which is safe after transpiling).
-    Full-width barriers close the preparation and every cycle, so each cycle is a segment that
-    stays in place through transpiling and scheduling.
+
+def assemble_program(cycle: QuantumCircuit, cycles: int) -> QuantumCircuit:
+    """The logical program: qubit 0 the NV, qubits 1..n the nuclei; `cycle` the unitary part.
+
+    Mixed-state preparation, then per cycle: NV reset, `cycle`, a full-width barrier, and the
+    saved probabilities of the nuclear qubits (ordered 1..n) under `cycle_label(c)` (Aer
+    `save_probabilities`, which is safe after transpiling). The barriers close the preparation
+    and every cycle, so each cycle is a segment that stays in place through transpiling and
+    scheduling.
     """
-    circuit = QuantumCircuit(plan.num_qubits, name="dnp_program")
-    nuclei = list(range(1, plan.num_qubits))
+    circuit = QuantumCircuit(cycle.num_qubits, name="dnp_program")
+    nuclei = list(range(1, cycle.num_qubits))
     prepare_mixed_nuclei(circuit, 0, nuclei)
     circuit.barrier()
-    body = cycle_circuit(plan, program_parameters(plan))
-    for c in range(1, plan.cycles + 1):
+    for c in range(1, cycles + 1):
         circuit.reset(0)
-        circuit.compose(body, inplace=True)
+        circuit.compose(cycle, inplace=True)
         circuit.barrier()
-        if save:
-            circuit.append(SaveProbabilities(len(nuclei), label=cycle_label(c)), nuclei)
+        circuit.append(SaveProbabilities(len(nuclei), label=cycle_label(c)), nuclei)
     return circuit

@@ -1,10 +1,5 @@
-"""The exact engine: dense propagators of the model and the exact NV-reset channel.
-
-Per sweep point, a cycle is one unitary U on NV ⊗ nuclei (preparation pulse, then the block
-repeated). With the NV reset to |0>, the cycle acts on the nuclear state ρ as
-ρ → Σ_a K_a ρ K_a†, K_a = (<a|_NV ⊗ 1)·U·(|0>_NV ⊗ 1), which is the reset channel
-ρ → |0><0| ⊗ Tr_NV(ρ) followed by U and the partial trace, without any full-space product.
-Evolution windows are exponentiated through `numpy.linalg.eigh`: exp(-2πi·H·t) = V e^{-2πi·w·t} V†.
+"""The exact engine: dense propagators of the model and the exact NV-reset channel
+(`propagation.py`), at every sweep point and imperfection node. No Trotter error: the reference.
 """
 
 from __future__ import annotations
@@ -14,84 +9,15 @@ from collections.abc import Callable
 import numpy as np
 
 from ..imperfections import average_nodes
-from ..model import SpinSystem, hamiltonian, z_signs
-from ..protocols import CycleSchedule, Evolve, Pulse, perturbed
+from ..program import Workload, row_unitaries
+from ..propagation import Propagators, polarization_by_cycle
 from ..resources import require_memory
 from ..results import SweepResult
-from ..scenario import Scenario
 
 
-class _Propagators:
-    """Cache of eigendecompositions of H for the drive settings met during a sweep."""
-
-    def __init__(self, system: SpinSystem):
-        self.system = system
-        self._eig: dict[tuple[float, float, float], tuple[np.ndarray, np.ndarray]] = {}
-
-    def evolve(self, segment: Evolve, x: float) -> np.ndarray:
-        key = (segment.rabi_hz.at(x), segment.detuning_hz.at(x), segment.phase_rad)
-        if key not in self._eig:
-            h = hamiltonian(self.system, rabi_hz=key[0], detuning_hz=key[1], phase_rad=key[2])
-            self._eig[key] = np.linalg.eigh(h.to_matrix())
-        w, v = self._eig[key]
-        phases = np.exp(-2j * np.pi * w * segment.duration_s.at(x))
-        return (v * phases) @ v.conj().T
-
-    def pulse(self, segment: Pulse) -> np.ndarray:
-        return np.kron(
-            np.eye(2**self.system.num_nuclei), nv_rotation(segment.angle_rad, segment.phase_rad)
-        )
-
-
-def nv_rotation(angle_rad: float, phase_rad: float) -> np.ndarray:
-    """R_φ(θ) = exp(-i·θ/2·(cos φ·X + sin φ·Y)) as a 2×2 matrix."""
-    c, s = np.cos(angle_rad / 2), np.sin(angle_rad / 2)
-    e = np.exp(1j * phase_rad)
-    return np.array([[c, -1j * s / e], [-1j * s * e, c]], dtype=np.complex128)
-
-
-def cycle_unitary(props: _Propagators, schedule: CycleSchedule, x: float) -> np.ndarray:
-    """U of one cycle at swept value x: prepare, then the block `repeats` times."""
-
-    def product(segments) -> np.ndarray:
-        dim = 2**props.system.num_qubits
-        u = np.eye(dim, dtype=np.complex128)
-        for seg in segments:
-            u = (props.pulse(seg) if isinstance(seg, Pulse) else props.evolve(seg, x)) @ u
-        return u
-
-    block = np.linalg.matrix_power(product(schedule.block), schedule.repeats)
-    return block @ product(schedule.prepare)
-
-
-def reset_kraus(unitary: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """K_0, K_1 on the nuclei for NV prepared in |0> and discarded after `unitary`."""
-    n = unitary.shape[0] // 2
-    blocks = unitary.reshape(n, 2, n, 2)
-    return blocks[:, 0, :, 0], blocks[:, 1, :, 0]
-
-
-def polarization_by_cycle(unitary: np.ndarray, cycles: int, num_nuclei: int) -> np.ndarray:
-    """(cycles, n) array of <Z_j> after each cycle, nuclei starting maximally mixed."""
-    k0, k1 = reset_kraus(unitary)
-    dim = 2**num_nuclei
-    rho = np.eye(dim, dtype=np.complex128) / dim
-    signs = z_signs(num_nuclei)
-    out = np.empty((cycles, num_nuclei))
-    for c in range(cycles):
-        rho = k0 @ rho @ k0.conj().T + k1 @ rho @ k1.conj().T
-        out[c] = np.real(np.diag(rho)) @ signs
-    return out
-
-
-def simulate_exact(
-    scenario: Scenario, *, on_point: Callable[[], None] | None = None
-) -> SweepResult:
-    """Exact polarizations over the scenario's sweep (no Trotter error).
-
-    With system imperfections, the average over the same nodes as the circuit engines.
-    """
-    system = scenario.system
+def simulate_exact(work: Workload, *, on_point: Callable[[], None] | None = None) -> SweepResult:
+    """Exact polarizations over the sweep of `work`, averaged over the imperfection nodes."""
+    system = work.system
     # eigh of the dense H (2^(n+1) square) holds about four such matrices at once
     require_memory(
         "exact",
@@ -99,23 +25,15 @@ def simulate_exact(
         f"NV + {system.num_nuclei} nuclei",
         "use the typical engine (--engine typical)",
     )
-    props = _Propagators(system)
-    nominal = scenario.schedule()
-    nodes = scenario.imperfections.nodes()
-    schedules = [perturbed(nominal, drive_error=s, detuning_error_hz=d) for _, s, d in nodes]
-    values = np.asarray(scenario.sweep.values)
-    per_node = np.empty((len(values), len(nodes), scenario.cycles, system.num_nuclei))
-    for i, x in enumerate(values):
-        for k, schedule in enumerate(schedules):
-            per_node[i, k] = polarization_by_cycle(
-                cycle_unitary(props, schedule, x), scenario.cycles, system.num_nuclei
-            )
+    shape = (work.cycles, system.num_nuclei)
+    props = Propagators(system)
+    rows = []
+    for i in range(len(work.values)):
+        for u in row_unitaries(work.subset([i]), props):
+            rows.append(polarization_by_cycle(u, work.cycles, system.num_nuclei))
         if on_point is not None:
             on_point()
-    weights = np.array([w for w, _, _ in nodes])
-    pol, err = average_nodes(
-        per_node.reshape(-1, scenario.cycles, system.num_nuclei),
-        weights,
-        scenario.imperfections.method == "sampling",
-    )
-    return SweepResult("exact", scenario.sweep.parameter, values, system.labels, pol, err)
+    weights = np.array([w for w, _, _ in work.nodes()])
+    pol, err = average_nodes(np.array(rows).reshape(-1, *shape), weights, work.sampled)
+    values = np.asarray(work.values)
+    return SweepResult("exact", work.parameter, values, system.labels, pol, err)

@@ -1,7 +1,7 @@
 """The noisy engine: the mapped program with processor noise, on Aer.
 
-The scenario's program is mapped onto its processor (the `[processor]` table, else the default
-grid), idle relaxation is inserted, and the circuit runs with the processor's `NoiseModel`:
+The program must be mapped (`program.map_onto`); idle relaxation is inserted, and each mapped
+circuit runs with the processor's `NoiseModel`:
 with the density-matrix method when 16·4^q bytes fit in half the memory, else as trajectories
 (statevector with sampled noise and sampled resets, `noise.trajectories` shots, seeded), which
 report the statistical error of each value. Imperfection nodes are averaged as in the other
@@ -21,30 +21,24 @@ from qiskit_aer.library import SaveProbabilities
 
 from ..errors import ScenarioError
 from ..model import z_signs
-from ..noise import noise_model, readout_factor, with_idle_relaxation
-from ..processor import Processor, make_processor
+from ..noise import NoiseSettings, noise_model, readout_factor, with_idle_relaxation
+from ..program import Program
 from ..resources import density_matrix_bytes, format_bytes, memory_budget_bytes
 from ..results import SweepResult
-from ..scenario import Scenario
 from ..trotter import cycle_label
 from .circuit import (
     density_matrix_simulator,
-    mapped_program,
-    node_columns,
     nuclear_polarizations,
-    run_bound,
-    simulate_circuit,
+    row_columns,
+    run_rows,
+    simulate_circuits,
 )
 
 
-def scenario_processor(scenario: Scenario) -> Processor:
-    return scenario.processor if scenario.processor is not None else make_processor({})
-
-
-def choose_method(scenario: Scenario, num_qubits: int) -> str:
+def choose_method(noise: NoiseSettings, num_qubits: int) -> str:
     """`density_matrix` or `trajectories`, refusing a density matrix that would not fit."""
     need, have = density_matrix_bytes(num_qubits), memory_budget_bytes()
-    method = scenario.noise.method
+    method = noise.method
     if method == "auto":
         return "density_matrix" if need <= have else "trajectories"
     if method == "density_matrix" and need > have:
@@ -83,26 +77,30 @@ def _trajectory_reader(factor: float) -> Callable[[dict, int, int], np.ndarray]:
 
 
 def simulate_noisy(
-    scenario: Scenario, *, on_point: Callable[[], None] | None = None
+    program: Program,
+    noise: NoiseSettings | None = None,
+    *,
+    on_point: Callable[[], None] | None = None,
 ) -> SweepResult:
     """Polarizations of the mapped program under processor noise (and imperfections)."""
-    processor = scenario_processor(scenario)
-    mapped = mapped_program(scenario, processor)
-    scale = scenario.noise.scale
-    circuit = mapped.circuit
-    if scenario.noise.idle:
-        circuit = with_idle_relaxation(circuit, mapped.region, processor, scale)
-    model = noise_model(processor, mapped.region, scale)
+    if not program.mapped:
+        raise ValueError("the noisy engine needs a mapped program (program.map_onto)")
+    noise = noise or NoiseSettings()
+    first = program.mapped[0]
+    processor, scale = first.processor, noise.scale
+    circuits = [m.circuit for m in program.mapped]
+    if noise.idle:
+        circuits = [with_idle_relaxation(c, first.region, processor, scale) for c in circuits]
+    model = noise_model(processor, first.region, scale)
     factor = readout_factor(processor, scale)
-    method = choose_method(scenario, circuit.num_qubits)
-    if method == "density_matrix":
+    if choose_method(noise, first.circuit.num_qubits) == "density_matrix":
         sim = density_matrix_simulator(noise_model=model)
 
         def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
             return factor * nuclear_polarizations(data, cycles, num_nuclei)
 
-        return simulate_circuit(scenario, circuit, "noisy", sim, reader=read, on_point=on_point)
-    return _trajectories(scenario, _pershot(circuit), model, factor, on_point)
+        return simulate_circuits(program, circuits, "noisy", sim, reader=read, on_point=on_point)
+    return _trajectories(program, [_pershot(c) for c in circuits], model, factor, noise, on_point)
 
 
 def point_seed(base: int, value: float) -> int:
@@ -111,27 +109,29 @@ def point_seed(base: int, value: float) -> int:
     return (base + int.from_bytes(digest[:4], "little")) % 2**31
 
 
-def _trajectories(scenario, circuit, model, factor, on_point) -> SweepResult:
+def _trajectories(program, circuits, model, factor, noise, on_point) -> SweepResult:
     """Per point (own seed): means and standard errors, combined over imperfection nodes."""
-    n, cycles = scenario.system.num_nuclei, scenario.cycles
-    columns, weights = node_columns(scenario)
+    work = program.workload
+    n, cycles = work.system.num_nuclei, work.cycles
+    columns = row_columns(work)
+    weights = np.array([w for w, _, _ in work.nodes()])
     per_point = len(weights)
-    mean = np.empty((len(scenario.sweep.values), cycles, n))
+    mean = np.empty((len(work.values), cycles, n))
     err = np.empty_like(mean)
-    for i, value in enumerate(scenario.sweep.values):
+    for i, value in enumerate(work.values):
         sim = AerSimulator(
             method="statevector",
             noise_model=model,
-            seed_simulator=point_seed(scenario.noise.seed, value),
+            seed_simulator=point_seed(noise.seed, value),
         )
         rows = slice(i * per_point, (i + 1) * per_point)
-        raw = run_bound(
-            circuit,
+        raw = run_rows(
+            circuits[rows] if len(circuits) > 1 else circuits,
             {k: v[rows] for k, v in columns.items()},
             cycles=cycles,
             num_nuclei=n,
             simulator=sim,
-            shots=scenario.noise.trajectories,
+            shots=noise.trajectories,
             reader=_trajectory_reader(factor),
             out_shape=(2, cycles, n),
         )
@@ -139,5 +139,5 @@ def _trajectories(scenario, circuit, model, factor, on_point) -> SweepResult:
         err[i] = np.sqrt(np.tensordot(weights**2, raw[:, 1] ** 2, axes=([0], [0])))
         if on_point is not None:
             on_point()
-    values = np.asarray(scenario.sweep.values)
-    return SweepResult("noisy", scenario.sweep.parameter, values, scenario.system.labels, mean, err)
+    values = np.asarray(work.values)
+    return SweepResult("noisy", work.parameter, values, work.system.labels, mean, err)

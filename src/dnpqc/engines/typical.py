@@ -14,16 +14,25 @@ standard error is the spread over the trajectories / sqrt(states).
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.sparse.linalg import expm_multiply
 
 from ..model import hamiltonian, z_signs
+from ..program import Workload
+from ..propagation import nv_rotation
 from ..protocols import Evolve, Pulse, perturbed
 from ..resources import require_memory
 from ..results import SweepResult
-from ..scenario import Scenario
-from .exact import nv_rotation
+
+
+@dataclass(frozen=True)
+class TypicalSettings:
+    """The typicality engine: random nuclear states per point (and node), and their seed."""
+
+    states: int = 32
+    seed: int = 0
 
 
 def _apply_pulse(states: np.ndarray, pulse: Pulse) -> np.ndarray:
@@ -67,12 +76,16 @@ def random_nuclear_states(num_nuclei: int, count: int, rng: np.random.Generator)
 
 
 def simulate_typical(
-    scenario: Scenario, *, on_point: Callable[[], None] | None = None
+    work: Workload,
+    settings: TypicalSettings | None = None,
+    *,
+    on_point: Callable[[], None] | None = None,
 ) -> SweepResult:
     """Polarizations from random pure states and an unravelled reset, with standard errors."""
-    system = scenario.system
-    n, cycles = system.num_nuclei, scenario.cycles
-    states_per_node = scenario.typical.states
+    settings = settings or TypicalSettings()
+    system = work.system
+    n, cycles = system.num_nuclei, work.cycles
+    states_per_node = settings.states
     terms = len(hamiltonian(system, rabi_hz=1.0, detuning_hz=1.0))
     # the state block and expm_multiply's work copies, plus the sparse H (16 B value + index)
     need = 6 * 16 * 2**system.num_qubits * states_per_node + 24 * terms * 2**system.num_qubits
@@ -83,19 +96,19 @@ def simulate_typical(
         "lower [typical] states or the number of nuclei",
     )
     signs = z_signs(n)
-    nodes = scenario.imperfections.nodes()
+    nodes = work.nodes()
     schedules = [
-        perturbed(scenario.schedule(), drive_error=s, detuning_error_hz=d) for _, s, d in nodes
+        perturbed(work.schedule(), drive_error=s, detuning_error_hz=d) for _, s, d in nodes
     ]
     weights = np.array([w for w, _, _ in nodes])
-    values = np.asarray(scenario.sweep.values)
+    values = np.asarray(work.values)
     mean = np.empty((len(values), cycles, n))
     err = np.empty_like(mean)
     cache: dict = {}
     for i, x in enumerate(values):
         per_node_mean, per_node_var = [], []
         for k, schedule in enumerate(schedules):
-            rng = np.random.default_rng([scenario.typical.seed, i, k])
+            rng = np.random.default_rng([settings.seed, i, k])
             states = random_nuclear_states(n, states_per_node, rng)
             samples = np.empty((cycles, states_per_node, n))
             for c in range(cycles):
@@ -114,4 +127,4 @@ def simulate_typical(
         err[i] = np.sqrt(np.tensordot(weights**2, np.array(per_node_var), axes=1))
         if on_point is not None:
             on_point()
-    return SweepResult("typical", scenario.sweep.parameter, values, system.labels, mean, err)
+    return SweepResult("typical", work.parameter, values, system.labels, mean, err)
