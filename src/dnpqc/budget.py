@@ -232,6 +232,12 @@ def gate_budget(mapped: MappedProgram) -> dict[str, object]:
     }
 
 
+def costliest_budget(mapped: list[MappedProgram]) -> dict[str, object]:
+    """The budget of the program (of a per-value set) with most two-qubit gates per cycle."""
+    budgets = [gate_budget(m) for m in mapped]
+    return max(budgets, key=lambda b: b["per_cycle"]["two_qubit"])
+
+
 def processor_summary(proc: Processor) -> dict[str, object]:
     graph = proc.graph()
     return {

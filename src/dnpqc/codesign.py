@@ -11,7 +11,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from .budget import gate_budget
+from .budget import costliest_budget, gate_budget
 from .model import Nucleus, SpinSystem
 from .processor import Processor, coupling_graph
 from .program import CompileJob, Program, compile_workload, map_onto
@@ -28,15 +28,10 @@ def trotter_error(job: CompileJob, trotter=None) -> dict[str, object]:
 
 def program_budget(program: Program) -> dict[str, object]:
     """The gate budget of a mapped program; for a per-value program, of its costliest row."""
-    budgets = [gate_budget(m) for m in program.mapped]
-    worst = max(budgets, key=lambda b: b["per_cycle"]["two_qubit"])
+    worst = costliest_budget(list(program.mapped))
     worst["program"] = {"strategy": program.strategy, "description": program.describe()}
     if program.per_row:
-        worst["program"]["programs"] = len(budgets)
-        worst["program"]["two_qubit_per_cycle_range"] = [
-            min(b["per_cycle"]["two_qubit"] for b in budgets),
-            max(b["per_cycle"]["two_qubit"] for b in budgets),
-        ]
+        worst["program"]["programs"] = len(program.mapped)
     return worst
 
 

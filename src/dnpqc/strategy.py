@@ -16,8 +16,9 @@ spaced sweep points (`program.ERROR_POINTS`), imperfection nodes, cycles and nuc
 - cycle-unitary: the synthesized cycle's operator against the exact unitary ("measured").
 
 Cost: two-qubit gates per cycle and the success estimate of the whole program, from the gate
-budget of a one-cycle probe program mapped onto the processor (`S = S_probe · S_cycle^(c-1)`),
-so that comparing strategies never maps the whole program of each.
+budget of a probe program of two cycles at the middle sweep value mapped onto the processor
+(`S = S_probe · S_cycle^(c-2)`), so that comparing strategies never maps the whole program of
+each; the row of the strategy that runs takes its figures from the whole mapped program.
 
 `auto` minimises approximation error + (1 - success estimate) over the strategies (trotter at
 steps 2, 4, … up to `MAX_AUTO_STEPS`, the weak-term interval scaled with the step length); with a
@@ -33,7 +34,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from qiskit.quantum_info import Operator
 
-from .budget import gate_budget
+from .budget import costliest_budget, gate_budget
 from .processor import Processor
 from .program import (
     MAX_SYNTHESIS_QUBITS,
@@ -58,6 +59,9 @@ from .trotter import pauli_terms
 
 #: Largest Trotter step count that `auto` tries.
 MAX_AUTO_STEPS = 1024
+#: Cycles of the probe programs that cost a strategy (two: the second cycle starts from the
+#: qubit placement that routing left, as every later cycle does).
+PROBE_CYCLES = 2
 
 
 @dataclass(frozen=True)
@@ -196,16 +200,20 @@ def _segment_bound(work: Workload, seg: Evolve, x: float, order: int) -> float:
 def probe_cost(
     job: CompileJob, strategy: str, trotter: TrotterSettings, processor: Processor
 ) -> tuple[float, float]:
-    """(two-qubit gates per cycle, whole-program success estimate) from a one-cycle probe."""
+    """(two-qubit gates per cycle, whole-program success estimate) from a probe of at most
+    `PROBE_CYCLES` cycles at the middle sweep value: S = S_probe · S_cycle^(cycles - probe)."""
     work = job.workload.nominal()
     middle = len(work.values) // 2
-    probe = replace(work.subset([middle]), cycles=1)
+    cycles = min(work.cycles, PROBE_CYCLES)
+    probe = replace(work.subset([middle]), cycles=cycles)
     program = map_onto(compile_workload(probe, strategy, trotter), processor, job.mapping)
-    budget = gate_budget(program.mapped[0])
+    return budget_cost(gate_budget(program.mapped[0]), work.cycles - cycles)
+
+
+def budget_cost(budget: dict, extra_cycles: int = 0) -> tuple[float, float]:
+    """(two-qubit gates per cycle, success estimate) of a budget, with `extra_cycles` more."""
     per_cycle = budget["per_cycle"]
-    success = budget["total"]["success_estimate"] * per_cycle["success_estimate"] ** (
-        work.cycles - 1
-    )
+    success = budget["total"]["success_estimate"] * per_cycle["success_estimate"] ** extra_cycles
     return float(per_cycle["two_qubit"]), float(success)
 
 
@@ -283,6 +291,7 @@ class Programs:
         self._choices: dict[Processor, Choice] = {}
         self._programs: dict[tuple[str, Processor, bool], Program] = {}
         self._trotter: tuple[TrotterSettings, str] | None = None
+        self._rows: dict[tuple, StrategyRow] = {}
 
     def trotter(self) -> tuple[TrotterSettings, str]:
         if self._trotter is None:
@@ -322,21 +331,33 @@ class Programs:
             self._programs[("mapped", *key)] = map_onto(logical, processor, self.job.mapping)
         return self._programs[("mapped", *key)]
 
+    def row(self, strategy: str, trotter: TrotterSettings, processor: Processor) -> StrategyRow:
+        """The cost and error of one strategy on `processor` (computed once)."""
+        key = (strategy, trotter if strategy == "trotter" else None, processor)
+        if key not in self._rows:
+            self._rows[key] = strategy_row(self.job, strategy, trotter, processor)
+        return self._rows[key]
+
     def rows(self, processor: Processor | None = None) -> list[StrategyRow]:
-        """One row per applicable strategy on `processor` (the auto search's rows for auto)."""
+        """One row per applicable strategy at the job's Trotter settings, plus the chosen one
+        where `auto` took other steps; the chosen row costed on the whole mapped program."""
         processor = processor or self.default_processor
         choice = self.choice(processor)
-        if choice.rows:
-            best = {}
-            for row in choice.rows:  # one row per strategy: the chosen, else the best of it
-                current = best.get(row.strategy)
-                if current is None or row.total_error < current.total_error:
-                    best[row.strategy] = row
-            for row in choice.rows:
-                if row.strategy == choice.strategy and row.steps == choice.trotter.steps:
-                    best[row.strategy] = row
-            return list(best.values())
+        for row in choice.rows:  # rows the auto search already costed
+            trotter = _ladder_settings(choice.trotter, row.steps) if row.steps else None
+            self._rows.setdefault((row.strategy, trotter, processor), row)
         trotter, _ = self.trotter()
-        return [
-            strategy_row(self.job, s, trotter, processor) for s in applicable(self.job.workload)
-        ]
+        wanted = [(s, trotter) for s in applicable(self.job.workload)]
+        if choice.strategy == "trotter" and choice.trotter != trotter:
+            wanted.append(("trotter", choice.trotter))
+        rows = []
+        for strategy, settings in wanted:
+            row = self.row(strategy, settings, processor)
+            if strategy == choice.strategy and (
+                strategy != "trotter" or settings == choice.trotter
+            ):
+                program = self.mapped(processor, nominal=True)
+                two_qubit, success = budget_cost(costliest_budget(list(program.mapped)))
+                row = replace(row, two_qubit_per_cycle=two_qubit, success_estimate=success)
+            rows.append(row)
+        return rows

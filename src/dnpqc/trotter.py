@@ -218,8 +218,9 @@ def _segment_operations(
 ) -> list[Layer]:
     """Steps of one window; weak terms (see `weak_keys`) once per group of `weak_every` steps.
 
-    A group of m steps is W(m·dt)·S^m (order 1) or W(m·dt/2)·S^m·W(m·dt/2) (order 2, a Strang
-    splitting of strong and weak parts); the last group holds the remaining steps.
+    A group of m steps is S^⌊m/2⌋·W(m·dt)·S^⌈m/2⌉: the weak part W, applied for the whole
+    group's time in its middle, splits the group symmetrically (second order at the group level,
+    a Strang splitting of strong and weak parts); the last group holds the remaining steps.
     """
     terms = pauli_terms(system, segment, variable, imperfections)
     dt = Poly.from_linear(segment.duration_s, variable) * (1.0 / segment.steps)
@@ -232,11 +233,7 @@ def _segment_operations(
     operations: list[Layer] = []
     for start in range(0, segment.steps, weak_every):
         m = min(weak_every, segment.steps - start)
-        if order == 1:
-            operations += step * m + step_layers(slow, dt * m, colours)
-        else:
-            edge = step_layers(slow, dt * (0.5 * m), colours)
-            operations += edge + step * m + edge
+        operations += step * (m // 2) + step_layers(slow, dt * m, colours) + step * (m - m // 2)
     return operations
 
 
