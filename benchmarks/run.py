@@ -15,13 +15,15 @@ import qutip
 from qiskit import transpile
 from qiskit_aer import AerSimulator
 
-from dnpqc import compile_program, parse_scenario, simulate
-from dnpqc.engines.circuit import density_matrix_simulator, mapped_program, run_program
-from dnpqc.engines.exact import nv_rotation
+from dnpqc import compile_program, demo_scenario, parse_scenario, simulate
+from dnpqc.engines.circuit import density_matrix_simulator, run_program
+from dnpqc.job import scenario_programs
 from dnpqc.model import hamiltonian
 from dnpqc.noise import noise_model, with_idle_relaxation
-from dnpqc.processor import build_target
+from dnpqc.processor import build_target, make_processor
+from dnpqc.propagation import nv_rotation
 from dnpqc.scenario import Sweep
+from dnpqc.strategy import applicable, resolved_trotter, strategy_row
 
 
 def cluster(n: int, *, points: int, cycles: int, steps: int = 10, time_s: float = 12e-6) -> str:
@@ -149,7 +151,7 @@ def case_noisy_throughput() -> None:
         )
     )
     ours, base = t_ours / 21, t_base / base_points
-    mapped = mapped_program(sc, sc.processor)
+    mapped = scenario_programs(sc).mapped().mapped[0]
     gates = len(mapped.circuit.data)
     bound = gates * 4**mapped.circuit.num_qubits * 16 / memory_bandwidth_bytes_per_s()
     line(
@@ -186,11 +188,39 @@ def case_scaling() -> None:
     )
 
 
+def _strategy_rows(sc, processor) -> str:
+    job = sc.compile_job()
+    trotter, _ = resolved_trotter(job)
+    cells = []
+    for strategy in applicable(job.workload):
+        row = strategy_row(job, strategy, trotter, processor)
+        steps = f" {row.steps} steps" if row.steps else ""
+        cells.append(
+            f"{strategy}{steps}: {row.two_qubit_per_cycle:.0f} 2q/cycle, "
+            f"err {row.approximation_error.value:.2g}, S {row.success_estimate:.2g}"
+        )
+    return "; ".join(cells)
+
+
+def case_strategies() -> None:
+    """Two-qubit gates per cycle and approximation error per strategy (costs from two-cycle
+    probes, default figures), for the demo and for NV + 1 … NV + 5 clusters."""
+    demo = demo_scenario()
+    line("5 strategies, demo", f"grid:3x3: {_strategy_rows(demo, demo.processor)}")
+    for n in range(1, 6):
+        text = cluster(n, points=9, cycles=2, steps=40, time_s=24e-6).replace("order = 2\n", "")
+        sc = parse_scenario(text)
+        for topology in ("grid:3x3", f"line:{n + 1}", "heavy-hex:3"):
+            processor = make_processor({"topology": topology})
+            line(f"5 strategies, NV+{n}", f"{topology}: {_strategy_rows(sc, processor)}")
+
+
 CASES = {
     "1": case_exact_vs_qutip,
     "2": case_compile_once,
     "3": case_noisy_throughput,
     "4": case_scaling,
+    "5": case_strategies,
 }
 
 if __name__ == "__main__":
