@@ -115,3 +115,30 @@ order = 2
 def three_nuclei():
     """Three nuclei with two dipolar couplings and a detuning (invented test values)."""
     return parse_scenario(THREE_NUCLEI)
+
+
+# three strongly coupled nuclei near the axis at azimuths 0°, ±120° (invented test values)
+AZIMUTH_TRIPLE = """
+[spins]
+field_t = 0.02
+[[spins.nuclei]]
+label = "A"
+position_nm = [0.16, 0.0, 0.62]
+[[spins.nuclei]]
+label = "B"
+position_nm = [-0.08, 0.139, 0.62]
+[[spins.nuclei]]
+label = "C"
+position_nm = [-0.08, -0.139, 0.62]
+[drive]
+protocol = "spin-lock"
+rabi_hz = 240e3
+[sweep]
+parameter = "rabi_hz"
+start = 240e3
+stop = 285e3
+points = 4
+[cycle]
+interaction_time_s = 100e-6
+count = 4
+"""

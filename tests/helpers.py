@@ -3,7 +3,8 @@
 import numpy as np
 import scipy.linalg
 
-from dnpqc.model import SpinSystem
+from dnpqc.constants import electron_nuclear_dipolar_hz_nm3
+from dnpqc.model import Nucleus, SpinSystem
 
 I2 = np.eye(2)
 X = np.array([[0, 1], [1, 0]], dtype=complex)
@@ -19,14 +20,33 @@ def embed(ops: dict[int, np.ndarray], num_qubits: int) -> np.ndarray:
     return out
 
 
+def hyperfine_row_reference(nucleus: Nucleus) -> np.ndarray:
+    """(A_zz, A_zx, A_zy) in Hz. From a position: the z row of the point-dipole tensor
+    a·(3·r̂ r̂ᵀ - 1) (textbook dipolar form, from memory); else A⊥ at its azimuth."""
+    if nucleus.position_nm is not None:
+        r = np.asarray(nucleus.position_nm, dtype=float)
+        dist = np.linalg.norm(r)
+        unit = r / dist
+        tensor = (
+            electron_nuclear_dipolar_hz_nm3() / dist**3 * (3 * np.outer(unit, unit) - np.eye(3))
+        )
+        return tensor[2, [2, 0, 1]]
+    alpha = np.deg2rad(nucleus.azimuth_deg)
+    return np.array(
+        [nucleus.a_par_hz, nucleus.a_perp_hz * np.cos(alpha), nucleus.a_perp_hz * np.sin(alpha)]
+    )
+
+
 def dense_reference(system: SpinSystem, rabi, detuning, phase=0.0) -> np.ndarray:
-    """The issue's formula, term by term, from S_z = -|1><1| and I = σ/2 (independent path)."""
+    """The issue's formula, term by term, from S_z = -|1><1| and I = σ/2 (independent path);
+    the whole secular hyperfine row S_z·(A_zz·I_z + A_zx·I_x + A_zy·I_y) is kept."""
     q = system.num_qubits
     sz = embed({0: np.diag([0.0, -1.0])}, q)
     h = detuning * sz + rabi / 2 * embed({0: np.cos(phase) * X + np.sin(phase) * Y}, q)
     for j, n in enumerate(system.nuclei, start=1):
-        iz, ix = embed({j: Z / 2}, q), embed({j: X / 2}, q)
-        h += -system.larmor_hz * iz + sz @ (n.a_par_hz * iz + n.a_perp_hz * ix)
+        iz, ix, iy = (embed({j: P / 2}, q) for P in (Z, X, Y))
+        a_zz, a_zx, a_zy = hyperfine_row_reference(n)
+        h += -system.larmor_hz * iz + sz @ (a_zz * iz + a_zx * ix + a_zy * iy)
     for c in system.couplings:
         j, k = c.first + 1, c.second + 1
         dot = sum(embed({j: P / 2}, q) @ embed({k: P / 2}, q) for P in (X, Y, Z))

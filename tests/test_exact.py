@@ -1,11 +1,12 @@
 """The exact engine against independent constructions, QuTiP and published resonance laws."""
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
 import qutip
-from conftest import one_nucleus, pulsed_text
+from conftest import AZIMUTH_TRIPLE, one_nucleus, pulsed_text
 from helpers import spin_lock_reference
 
 from dnpqc import parse_scenario, simulate
@@ -155,3 +156,59 @@ def test_finite_pulses_approach_ideal_pulses():
         errors.append(abs(simulate(finite, "exact").polarization[0, 0, 0] - ideal))
     assert errors[1] < errors[0]
     assert errors[1] < 0.01
+
+
+def _rotated_positions(text: str, angle_deg: float, only: str | None = None) -> str:
+    """The same cluster with every position (or only the one of `only`) turned about z."""
+    sc = parse_scenario(text)
+    c, s = math.cos(math.radians(angle_deg)), math.sin(math.radians(angle_deg))
+    for n in sc.system.nuclei:
+        if only in (None, n.label):
+            x, y, z = n.position_nm
+            text = text.replace(
+                f"{list(n.position_nm)}", f"[{c * x - s * y}, {s * x + c * y}, {z}]"
+            )
+    return text
+
+
+def test_whole_hyperfine_row_against_reference():
+    # reference: full-space ρ, scipy expm of the np.kron Hamiltonian whose hyperfine row
+    # (A_zz, A_zx, A_zy) comes from the point-dipole tensor of each position (helpers.py)
+    sc = parse_scenario(AZIMUTH_TRIPLE)
+    result = simulate(sc, "exact")
+    for i, rabi in enumerate(sc.sweep.values):
+        ref = spin_lock_reference(sc.system, rabi=rabi, detuning=0.0, time_s=100e-6, cycles=4)
+        assert np.allclose(result.polarization[i], ref, atol=1e-9, rtol=0)
+    # the test can fail: rotating A_zy away per nucleus moves P by more than 1e-3 here
+    flat = replace(
+        sc,
+        system=replace(
+            sc.system, nuclei=tuple(replace(n, azimuth_deg=0.0) for n in sc.system.nuclei)
+        ),
+    )
+    assert np.max(np.abs(simulate(flat, "exact").polarization - result.polarization)) > 1e-3
+
+
+def test_polarizations_invariant_under_a_common_rotation_about_z():
+    # H commutes with a common rotation exp(-iβ·Σ_j I_z^j) of all nuclei apart from the
+    # hyperfine azimuths, and I/2^n and Z_j are invariant (symmetry, common practice)
+    base = simulate(parse_scenario(AZIMUTH_TRIPLE), "exact").polarization
+    turned = simulate(parse_scenario(_rotated_positions(AZIMUTH_TRIPLE, 37.0)), "exact")
+    assert np.allclose(turned.polarization, base, atol=1e-9, rtol=0)
+    one = simulate(parse_scenario(_rotated_positions(AZIMUTH_TRIPLE, 37.0, only="B")), "exact")
+    assert np.max(np.abs(one.polarization - base)) > 1e-3
+
+
+def test_polarizations_invariant_under_a_common_change_of_azimuths(three_nuclei):
+    def with_azimuths(azimuths):
+        nuclei = tuple(
+            replace(n, azimuth_deg=a)
+            for n, a in zip(three_nuclei.system.nuclei, azimuths, strict=True)
+        )
+        return simulate(
+            replace(three_nuclei, system=replace(three_nuclei.system, nuclei=nuclei)), "exact"
+        ).polarization
+
+    base = with_azimuths((10.0, 130.0, -100.0))
+    assert np.allclose(with_azimuths((60.0, 180.0, -50.0)), base, atol=1e-9, rtol=0)
+    assert np.max(np.abs(with_azimuths((10.0, 130.0, 0.0)) - base)) > 1e-4

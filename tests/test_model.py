@@ -7,6 +7,7 @@ from helpers import X, Y, Z, dense_reference, embed
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from dnpqc import parse_scenario
 from dnpqc.model import (
     Coupling,
     Nucleus,
@@ -80,3 +81,49 @@ def test_hermitian_and_matches_reference(a, d, rabi, detuning, phase):
     h = hamiltonian(system, rabi_hz=rabi, detuning_hz=detuning, phase_rad=phase).to_matrix()
     assert np.allclose(h, h.conj().T)
     assert np.allclose(h, dense_reference(system, rabi, detuning, phase), atol=1e-6)
+
+
+AZIMUTH_CLUSTER = """
+[spins]
+field_t = 0.02
+[[spins.nuclei]]
+label = "A"
+position_nm = [0.16, 0.0, 0.62]
+[[spins.nuclei]]
+label = "B"
+position_nm = [-0.08, 0.139, 0.62]
+[[spins.nuclei]]
+label = "C"
+position_nm = [-0.08, -0.139, 0.62]
+[[spins.nuclei]]
+label = "D"
+a_par_hz = 12e3
+a_perp_hz = 9e3
+azimuth_deg = 75
+[drive]
+protocol = "spin-lock"
+rabi_hz = 280e3
+[cycle]
+interaction_time_s = 1e-5
+"""
+
+
+def test_full_secular_hyperfine_row_against_reference():
+    # nuclei at three azimuths plus one given by couplings at 75°: the whole row
+    # S_z·(A_zz·I_z + A_zx·I_x + A_zy·I_y), built from the positions in helpers.py
+    system = parse_scenario(AZIMUTH_CLUSTER).system
+    got = hamiltonian(system, rabi_hz=280e3, detuning_hz=1e3, phase_rad=0.2).to_matrix()
+    assert np.allclose(got, dense_reference(system, 280e3, 1e3, 0.2), atol=1e-9, rtol=0)
+    labels = {label for label, _ in hamiltonian(system, rabi_hz=1.0, detuning_hz=0.0).to_list()}
+    assert {"IIYIZ", "YIIIZ"} <= labels  # Z_NV·Y_B and Z_NV·Y_D are kept
+
+
+def test_azimuth_multiples_of_90_degrees_give_single_terms():
+    # cos 90° is exactly 0 here, so no stray 1e-17 Hz term (and no gate) is compiled
+    system = SpinSystem(0.05, (Nucleus("C", 10e3, 8e3, azimuth_deg=90.0),))
+    terms = dict(hamiltonian(system, rabi_hz=0.0, detuning_hz=0.0).to_list())
+    assert "XZ" not in terms and "XI" not in terms
+    assert terms["YZ"] == pytest.approx(2e3)
+    assert nuclear_frequency_hz(system, 0) == nuclear_frequency_hz(
+        SpinSystem(0.05, (Nucleus("C", 10e3, 8e3),)), 0
+    )

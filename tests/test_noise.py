@@ -1,19 +1,23 @@
 """Processor noise and system imperfections."""
 
+import functools
+import itertools
 import math
 from dataclasses import replace
 
 import numpy as np
 import pytest
 from conftest import THREE_NUCLEI, one_nucleus, pulsed_text
+from helpers import embed
 from qiskit import QuantumCircuit
-from qiskit.quantum_info import DensityMatrix, Kraus, SuperOp, average_gate_fidelity
+from qiskit.quantum_info import DensityMatrix, Kraus, Operator, SuperOp, average_gate_fidelity
 from qiskit_aer import AerSimulator
 from qiskit_aer.noise import depolarizing_error
 
 from dnpqc import ScenarioError, parse_scenario, simulate
 from dnpqc.engines.noisy import choose_method
 from dnpqc.imperfections import Imperfections
+from dnpqc.job import scenario_programs
 from dnpqc.model import nuclear_frequency_hz
 from dnpqc.noise import (
     depolarizing_parameter,
@@ -27,6 +31,7 @@ from dnpqc.processor import make_processor
 PROC = make_processor(
     {
         "topology": "line:2",
+        "native_gates": "cz+rz+sx+x",
         "t1_s": 20e-6,
         "t2_s": 30e-6,
         "error_1q": 0.0,
@@ -76,6 +81,7 @@ def _idle_circuit(prepare: str) -> QuantumCircuit:
     getattr(qc, prepare)(0)
     for _ in range(200):
         qc.sx(1)
+    qc.barrier()  # a save synchronises nothing; the program's barrier does
     qc.save_density_matrix([0])
     return qc
 
@@ -198,3 +204,129 @@ def test_imperfections_exact_and_trotter_agree():
     sampled = parse_scenario(text + 'method = "sampling"\nsamples = 8\nseed = 3\n')
     result = simulate(sampled, "exact")
     assert result.stderr is not None and result.stderr.shape == result.polarization.shape
+
+
+# A hand-built noisy reference, written from the README's noise description with numpy only
+# (Kraus forms from Nielsen & Chuang 2000, §8.3; average fidelity (Σ|Tr K|² + d)/(d(d+1)) from
+# Nielsen, Phys. Lett. A 303, 249, 2002), scheduling the hardware program (no saves) ASAP.
+def _relax_kraus(t, t1, t2):
+    gamma = 1 - math.exp(-t / t1)
+    f = math.exp(-t / t2 + t / (2 * t1))  # dephasing left after amplitude damping
+    damp = [
+        np.array([[1, 0], [0, math.sqrt(1 - gamma)]]),
+        np.array([[0, math.sqrt(gamma)], [0, 0]]),
+    ]
+    dephase = [math.sqrt((1 + f) / 2) * np.eye(2), math.sqrt((1 - f) / 2) * np.diag([1.0, -1.0])]
+    return [p @ a for a in damp for p in dephase]
+
+
+def _apply(rho, kraus, qubits, nq):
+    """Σ K ρ K† with K on `qubits` (a product of single-qubit Kraus lists, one per qubit)."""
+    out = np.zeros_like(rho)
+    for combo in itertools.product(*kraus):
+        k = embed(dict(zip(qubits, combo, strict=True)), nq)
+        out += k @ rho @ k.conj().T
+    return out
+
+
+def _average_infidelity(kraus_lists):
+    d = 2 ** len(kraus_lists)
+    total = sum(
+        abs(np.trace(functools.reduce(np.kron, combo))) ** 2
+        for combo in itertools.product(*kraus_lists)
+    )
+    return 1 - (total + d) / (d * (d + 1))
+
+
+def _depolarize(rho, lam, qubits, nq):
+    """(1-λ)ρ + λ·Tr_q(ρ)⊗I/d, as the Pauli twirl (1/d²)·Σ_P PρP over the gate's qubits."""
+    paulis = [
+        np.eye(2),
+        np.array([[0, 1], [1, 0]]),
+        np.array([[0, -1j], [1j, 0]]),
+        np.diag([1, -1]),
+    ]
+    twirl = np.zeros_like(rho)
+    for combo in itertools.product(paulis, repeat=len(qubits)):
+        p = embed(dict(zip(qubits, combo, strict=True)), nq)
+        twirl += p @ rho @ p.conj().T
+    return (1 - lam) * rho + lam * twirl / 4 ** len(qubits)
+
+
+def _hand_built_noisy(mapped, value):
+    proc, region = mapped.processor, mapped.region
+    circuit = mapped.circuit.assign_parameters(dict.fromkeys(mapped.circuit.parameters, value))
+    nq = circuit.num_qubits
+    rho = np.zeros((2**nq, 2**nq), dtype=complex)
+    rho[0, 0] = 1.0
+    free = [0.0] * nq
+    t1 = [proc.t1_s[region[i]] for i in range(nq)]
+    t2 = [proc.t2_s[region[i]] for i in range(nq)]
+
+    def wait(rho, qubits, start):
+        for q in qubits:
+            if start > free[q]:
+                rho = _apply(rho, [_relax_kraus(start - free[q], t1[q], t2[q])], [q], nq)
+            free[q] = start
+        return rho
+
+    at_barrier, saves = [], []
+    for inst in circuit.data:
+        name = inst.operation.name
+        qs = [circuit.find_bit(q).index for q in inst.qubits]
+        if name == "save_probabilities":
+            saves.append(qs)
+            continue
+        if name == "barrier":
+            rho = wait(rho, qs, max(free[q] for q in qs))
+            at_barrier.append(rho)
+            continue
+        start = max(free[q] for q in qs)
+        rho = wait(rho, qs, start)
+        duration = proc.gate_duration_s(name)
+        if name == "reset":
+            (q,) = qs
+            p1 = proc.error_reset
+            ket0 = embed({q: np.array([[1, 0], [0, 0]])}, nq)
+            ket1 = embed({q: np.array([[0, 0], [1, 0]])}, nq)
+            rho = ket0 @ rho @ ket0.T + ket1.T @ rho @ ket1  # |0><0| ⊗ Tr_q ρ
+            x = embed({q: np.array([[0, 1], [1, 0]])}, nq)
+            rho = (1 - p1) * rho + p1 * x @ rho @ x
+            rho = _apply(rho, [_relax_kraus(duration, t1[q], t2[q])], [q], nq)
+        else:
+            single = QuantumCircuit(nq)
+            single.append(inst.operation, qs)
+            u = Operator(single).data
+            rho = u @ rho @ u.conj().T
+            if duration > 0:
+                relax = [_relax_kraus(duration, t1[q], t2[q]) for q in qs]
+                rho = _apply(rho, relax, qs, nq)
+                eps_r = _average_infidelity(relax)
+                d = 2 ** len(qs)
+                eps = proc.gate_error(name)
+                lam = max(0.0, (eps - eps_r) / ((d - 1) / d - eps_r))
+                rho = _depolarize(rho, lam, qs, nq)
+        for q in qs:
+            free[q] = start + duration
+    factor = 1 - 2 * proc.error_readout
+    return np.array(
+        [
+            [factor * np.trace(embed({q: np.diag([1.0, -1.0])}, nq) @ r).real for q in qubits]
+            for r, qubits in zip(at_barrier[1:], saves, strict=True)
+        ]
+    )
+
+
+def test_noisy_engine_against_a_hand_built_noise_reference():
+    # saves are no sync points: each cycle's values are read at its closing barrier, and the
+    # nuclei wait for the next NV reset after that (as on hardware)
+    text = (
+        THREE_NUCLEI.replace("points = 4", "points = 2").replace("steps = 30", "steps = 2")
+        + '[processor]\ntopology = "line:4"\nt1_s = 20e-6\nt2_s = 30e-6\noptimization_level = 1\n'
+    )
+    sc = parse_scenario(text)
+    result = simulate(sc, "noisy")
+    mapped = scenario_programs(sc).mapped().mapped[0]
+    for i, value in enumerate(sc.sweep.values):
+        expected = _hand_built_noisy(mapped, value)
+        assert np.allclose(result.polarization[i], expected, atol=1e-9, rtol=0)

@@ -3,6 +3,7 @@
 import numpy as np
 import openqasm3
 import pytest
+from conftest import THREE_NUCLEI
 from openqasm3 import ast
 from qiskit import QuantumCircuit, qasm3
 from qiskit_aer.library import SaveProbabilities
@@ -71,7 +72,9 @@ def _reimport_with_saves(text: str) -> QuantumCircuit:
     return out
 
 
-@pytest.mark.parametrize("gates", ["cz+rz+sx", "cz+r", "rzz+rx+rz", "ecr+rz+sx"])
+@pytest.mark.parametrize(
+    "gates", ["cz+rz+sx", "cz+rz+sx+x", "cz+r", "rzz+rx+rz", "ecr+rz+sx", "ecr+rz+sx+x"]
+)
 def test_parses_with_reference_parser_and_uses_native_gates_on_edges(gates):
     # the OpenQASM 3 reference parser (openqasm3 package of the OpenQASM project)
     sc, mapped = _mapped(gates)
@@ -79,7 +82,7 @@ def test_parses_with_reference_parser_and_uses_native_gates_on_edges(gates):
         hardware_program(mapped), header_lines(compile_program(sc), mapped, gate_budget(mapped))
     )
     program = openqasm3.parse(text)
-    allowed = set(gates.split("+")) | {"x"}
+    allowed = set(gates.split("+"))  # only the gates that the set's name lists
     edges = {tuple(sorted(e)) for e in mapped.processor.edges}
     calls = [s for s in program.statements if isinstance(s, ast.QuantumGate)]
     assert calls
@@ -138,10 +141,44 @@ def test_header_states_map_convention_and_budget():
     )
     head = text.split("OPENQASM 3.0;")[0]
     assert "'qasm-test'" in head and "U = exp(-2πi·H·t)" in head
-    assert f"NV = ${mapped.initial[0]}" in head
+    assert f"NV = ${mapped.initial[0]} at the start, ${mapped.final[0]} at the end" in head
     assert f"A = ${mapped.initial[1]} at the start, ${mapped.final[1]} at the end" in head
     assert "success estimate" in head and "grid:3x3" in head
     openqasm3.parse(text)
+
+
+def _final_single_qubit_state(circuit, qubit, value):
+    bound = circuit.assign_parameters(dict.fromkeys(circuit.parameters, value))
+    qc = bound.copy_empty_like()
+    for inst in bound.data:
+        if not inst.operation.name.startswith("save"):
+            qc.append(inst)
+    qc.save_density_matrix([qubit])
+    return np.asarray(density_matrix_simulator().run(qc).result().data()["density_matrix"])
+
+
+@pytest.mark.parametrize("topology", ["ring:4", "heavy-hex:3"])
+def test_header_gives_where_the_nv_ends(topology):
+    # routing moves the NV here; the header's NV at the end holds the logical NV's final state
+    # (Aer density matrices of the logical and the mapped program, level 1 so both agree to
+    # 1e-9), and no nucleus does
+    sc = parse_scenario(
+        THREE_NUCLEI.replace("steps = 30", "steps = 2").replace("count = 3", "count = 2")
+    )
+    program = compile_program(sc)
+    proc = make_processor({"topology": topology})
+    mapped = map_program(program.circuit, sc.system, proc, optimization_level=1)
+    budget = gate_budget(mapped)
+    q = budget["qubits"]
+    assert q["nv"] != q["nv_final"]
+    head = "\n".join(header_lines(program, mapped, budget))
+    assert f"NV = ${q['nv']} at the start, ${q['nv_final']} at the end" in head
+    local = {p: i for i, p in enumerate(mapped.region)}
+    value = sc.sweep.values[1]
+    nv = _final_single_qubit_state(program.circuit, 0, value)
+    assert np.allclose(_final_single_qubit_state(mapped.circuit, local[q["nv_final"]], value), nv)
+    for phys in q["nuclei_final"]:
+        assert not np.allclose(_final_single_qubit_state(mapped.circuit, local[phys], value), nv)
 
 
 def test_compile_cli_writes_atomically_and_rejects_bad_bind(tmp_path, capsys):

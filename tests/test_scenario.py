@@ -55,6 +55,15 @@ interaction_time_s = 1e-5
     assert sc.system.nuclei[0].position_nm == (0.0, 0.3, 0.5)
     override = parse_scenario(text + '[[spins.couplings]]\npair = ["Q", "P"]\nd_hz = 12.5\n')
     assert override.system.couplings[0].d_hz == 12.5
+    # the transverse coupling points at the position's azimuth: 90° for P, atan2(-0.3, 0.2) for Q
+    assert sc.system.nuclei[0].azimuth_deg == pytest.approx(90.0)
+    assert sc.system.nuclei[1].azimuth_deg == pytest.approx(math.degrees(math.atan2(-0.3, 0.2)))
+
+
+def test_azimuth_of_a_nucleus_given_by_couplings():
+    text = THREE_NUCLEI.replace("a_perp_hz = 8e3", "a_perp_hz = 8e3\nazimuth_deg = -30")
+    nuclei = parse_scenario(text).system.nuclei
+    assert [n.azimuth_deg for n in nuclei] == [0.0, -30.0, 0.0]
 
 
 def test_lattice_cluster():
@@ -95,6 +104,20 @@ BAD = [
         "both hf and position",
         lambda t: _edit(t, "a_perp_hz = 12e3", "a_perp_hz = 12e3\nposition_nm = [0, 0, 1]"),
         "has both of `a_par_hz`\\+`a_perp_hz` and `position_nm`",
+    ),
+    (
+        "azimuth with a position",
+        lambda t: _edit(
+            t,
+            "a_par_hz = 25e3\na_perp_hz = 12e3\n",
+            "position_nm = [0, 0.4, 0.5]\nazimuth_deg = 10\n",
+        ),
+        "`spins.nuclei\\[0\\].azimuth_deg` \\('A'\\) goes with",
+    ),
+    (
+        "azimuth not a number",
+        lambda t: _edit(t, "a_perp_hz = 12e3", 'a_perp_hz = 12e3\nazimuth_deg = "north"'),
+        "azimuth_deg` must be a number",
     ),
     (
         "neither hf nor position",

@@ -36,6 +36,11 @@ from dnpqc.trotter import (
         ("ZX", (0, 2)),
         ("XZ", (2, 0)),
         ("ZX", (2, 1)),
+        ("ZY", (0, 2)),
+        ("YZ", (2, 0)),
+        ("ZY", (2, 1)),
+        ("XY", (1, 2)),
+        ("YX", (0, 1)),
     ],
 )
 def test_rotation_gates_equal_pauli_exponentials(pauli, qubits):

@@ -223,6 +223,7 @@ class RunOutcome:
                         "label": n.label,
                         "a_par_hz": n.a_par_hz,
                         "a_perp_hz": n.a_perp_hz,
+                        "azimuth_deg": n.azimuth_deg,
                         "position_nm": list(n.position_nm) if n.position_nm else None,
                         "nu_tilde_hz": nuclear_frequency_hz(sc.system, j),
                         "a_perp_eff_hz": effective_perp_hz(sc.system, j),

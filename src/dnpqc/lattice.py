@@ -35,7 +35,8 @@ def hyperfine_from_position(position_nm: tuple[float, float, float]) -> tuple[fl
     """Secular point-dipole hyperfine pair (A∥, A⊥) in Hz for a 13C at `position_nm`.
 
     A∥ = a(3cos²θ - 1), A⊥ = 3a·sinθ·cosθ, a = (μ0/4π)·γ_e·γ_C·ħ/(2π·r³), θ the angle to the NV
-    axis; the nuclear frame is turned about z so that A_zy = 0.
+    axis. A⊥ points at the azimuth of the position (`transverse_azimuth_deg`):
+    A_zx = A⊥·cos α, A_zy = A⊥·sin α.
     """
     r_vec = np.asarray(position_nm, dtype=float)
     r = float(np.linalg.norm(r_vec))
@@ -45,6 +46,11 @@ def hyperfine_from_position(position_nm: tuple[float, float, float]) -> tuple[fl
     cos_t = r_vec[2] / r
     sin_t = math.hypot(r_vec[0], r_vec[1]) / r
     return float(a * (3 * cos_t**2 - 1)), float(3 * a * sin_t * cos_t)
+
+
+def transverse_azimuth_deg(position_nm: tuple[float, float, float]) -> float:
+    """Azimuth α (degrees) of a position about the NV axis, from x; 0 on the axis itself."""
+    return math.degrees(math.atan2(position_nm[1], position_nm[0]))
 
 
 def dipolar_from_positions(first_nm, second_nm) -> float:

@@ -78,7 +78,7 @@ def interaction_weights(system: SpinSystem) -> dict[tuple[int, int], float]:
     """Two-qubit gates per Trotter step between logical qubits (0 = NV, j = nucleus j)."""
     weights: dict[tuple[int, int], float] = {}
     for j, n in enumerate(system.nuclei, start=1):
-        weights[(0, j)] = float((n.a_par_hz != 0) + (n.a_perp_hz != 0))
+        weights[(0, j)] = float(sum(a != 0 for a in (n.a_par_hz, n.a_zx_hz, n.a_zy_hz)))
     for c in system.couplings:
         weights[(c.first + 1, c.second + 1)] = 3.0
     return weights

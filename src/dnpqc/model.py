@@ -11,11 +11,13 @@ Conventions (stated once, used everywhere in dnpqc)
 * Rotating frame of the microwave drive, rotating-wave and secular approximations:
 
       H = Δ·S_z + (Ω/2)·(cos φ·X_0 + sin φ·Y_0)
-          + Σ_j [ -ν_L·I_z^j + S_z·(A∥_j·I_z^j + A⊥_j·I_x^j) ]
+          + Σ_j [ -ν_L·I_z^j + S_z·(A_zz,j·I_z^j + A_zx,j·I_x^j + A_zy,j·I_y^j) ]
           + Σ_{j<k} D_jk·(3·I_z^j·I_z^k - I^j·I^k)
 
   with ν_L = γ_C·B0 the 13C Larmor frequency, Δ the NV detuning, Ω the Rabi frequency and φ the
-  drive phase (φ = 0 drives about X).
+  drive phase (φ = 0 drives about X). The secular hyperfine row of nucleus j is
+  (A_zz, A_zx, A_zy) = (A∥, A⊥·cos α, A⊥·sin α), α the azimuth of its transverse coupling
+  about the NV axis (for a nucleus at a position, the azimuth of that position).
 * A rotation of the NV by angle θ about the XY-plane axis at phase φ is
   R_φ(θ) = exp(-i·θ/2·(cos φ·X + sin φ·Y)) (qiskit's ``r`` gate); a drive of Rabi frequency Ω
   turns the NV by θ = 2π·Ω·t in time t.
@@ -36,20 +38,42 @@ from .errors import ScenarioError
 
 @dataclass(frozen=True)
 class Nucleus:
-    """A 13C nucleus: its label, secular hyperfine pair in Hz and, if known, position in nm."""
+    """A 13C nucleus: its secular hyperfine coupling in Hz and, if known, position in nm.
+
+    A∥ = `a_par_hz` = A_zz; the transverse coupling A⊥ = `a_perp_hz` points at the azimuth
+    `azimuth_deg` (degrees, about the NV axis from x): A_zx = A⊥·cos α, A_zy = A⊥·sin α.
+    """
 
     label: str
     a_par_hz: float
     a_perp_hz: float
     position_nm: tuple[float, float, float] | None = None
+    azimuth_deg: float = 0.0
 
     def __post_init__(self) -> None:
         if not self.label:
             raise ScenarioError("nucleus `label` must be a non-empty string")
-        for name in ("a_par_hz", "a_perp_hz"):
+        for name in ("a_par_hz", "a_perp_hz", "azimuth_deg"):
             value = getattr(self, name)
             if not math.isfinite(value):
                 raise ScenarioError(f"nucleus {self.label!r}: `{name}` must be finite, got {value}")
+
+    @property
+    def a_zx_hz(self) -> float:
+        return self.a_perp_hz * _cos_sin_deg(self.azimuth_deg)[0]
+
+    @property
+    def a_zy_hz(self) -> float:
+        return self.a_perp_hz * _cos_sin_deg(self.azimuth_deg)[1]
+
+
+def _cos_sin_deg(angle_deg: float) -> tuple[float, float]:
+    """(cos, sin) of an angle in degrees, exact at multiples of 90° (no 6e-17 leftover terms)."""
+    quarter, rest = divmod(angle_deg, 90.0)
+    if rest == 0.0:
+        return ((1.0, 0.0), (0.0, 1.0), (-1.0, 0.0), (0.0, -1.0))[int(quarter) % 4]
+    rad = math.radians(angle_deg)
+    return math.cos(rad), math.sin(rad)
 
 
 @dataclass(frozen=True)
@@ -128,11 +152,13 @@ def hamiltonian(
     add({0: "Y"}, rabi_hz / 2 * math.sin(phase_rad))
     nu_l = system.larmor_hz
     for j, nucleus in enumerate(system.nuclei, start=1):
-        # -ν_L·I_z + S_z·(A∥·I_z + A⊥·I_x), with S_z = (Z_0 - 1)/2 and I = σ/2
+        # -ν_L·I_z + S_z·(A_zz·I_z + A_zx·I_x + A_zy·I_y), with S_z = (Z_0 - 1)/2 and I = σ/2
         add({j: "Z"}, -nu_l / 2 - nucleus.a_par_hz / 4)
-        add({j: "X"}, -nucleus.a_perp_hz / 4)
+        add({j: "X"}, -nucleus.a_zx_hz / 4)
+        add({j: "Y"}, -nucleus.a_zy_hz / 4)
         add({0: "Z", j: "Z"}, nucleus.a_par_hz / 4)
-        add({0: "Z", j: "X"}, nucleus.a_perp_hz / 4)
+        add({0: "Z", j: "X"}, nucleus.a_zx_hz / 4)
+        add({0: "Z", j: "Y"}, nucleus.a_zy_hz / 4)
     for c in system.couplings:
         j, k = c.first + 1, c.second + 1
         # D·(3·I_z I_z - I·I) = D/4·(2·ZZ - XX - YY)
@@ -145,6 +171,8 @@ def hamiltonian(
 
 def nuclear_frequency_hz(system: SpinSystem, index: int) -> float:
     """Precession frequency ν̃ = sqrt((ν_L + A∥/2)² + (A⊥/2)²) of nucleus `index` (0-based).
+
+    It does not depend on the azimuth of A⊥ (a rotation of the nucleus about z).
 
     This is the nuclear frequency with the NV spin-locked (or on the equator), i.e. the
     Hartmann–Hahn match Ω = ν̃ of the continuous drive.

@@ -10,13 +10,16 @@ infidelity ε_r the pair has 1 - F = (1-λ)·ε_r + λ(d-1)/d, which fixes λ ex
 relaxation alone exceeds ε).
 
 Idle periods: the density-matrix simulator applies no noise to waiting qubits. The mapped circuit
-is scheduled as soon as possible (barriers synchronise, durations from the processor), and every
-idle gap gets a thermal-relaxation instruction, so a qubit left alone in |1> for t decays as
-exp(-t/T1).
+is scheduled as soon as possible, as the exported hardware program runs (barriers synchronise,
+durations from the processor; the simulator's save instructions take no time and synchronise
+nothing, so a save reads the state at the end of its cycle), and every idle gap gets a
+thermal-relaxation instruction, so a qubit left alone in |1> for t decays as exp(-t/T1).
 
-Reset: after a reset the qubit is in |1> with probability `error_reset`. Readout: a symmetric
-assignment error e scales each measured polarization by (1 - 2e); the engines save
-probabilities, so it is applied to them (and a `ReadoutError` is in the model for measurements).
+Reset: after a reset the qubit is in |1> with probability `error_reset`, and then relaxes (T1,
+T2) for the reset's duration `time_reset_s`, while the qubits that wait for it relax as idle.
+Readout: a symmetric assignment error e scales each measured polarization by (1 - 2e); the
+engines save probabilities, so it is applied to them (and a `ReadoutError` is in the model for
+measurements).
 
 `scale` multiplies every error rate and every relaxation rate (1/T1, 1/T2).
 """
@@ -160,7 +163,7 @@ def with_idle_relaxation(
         qubits = [circuit.find_bit(q).index for q in inst.qubits]
         name = inst.operation.name
         if name.startswith("save"):
-            idle(clock.sync(range(circuit.num_qubits)))  # a snapshot of the whole register
+            pass  # a simulator snapshot, not part of the hardware program: it moves no idle gap
         elif name in INSTANT:
             idle(clock.sync(qubits))
         else:

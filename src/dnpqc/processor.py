@@ -34,12 +34,15 @@ from qiskit_aer.library import SaveDensityMatrix, SaveProbabilities
 
 from .errors import ScenarioError
 
-#: Native gate sets, named for what they are: (two-qubit gate, single-qubit gates).
+#: Native gate sets, named for what they are: (two-qubit gate, single-qubit gates). A set emits
+#: only the gates its name lists (`cz+rz+sx` writes X as two SX; `cz+rz+sx+x` has its own X).
 NATIVE_GATE_SETS: dict[str, tuple[str, tuple[str, ...]]] = {
-    "cz+rz+sx": ("cz", ("rz", "sx", "x")),
+    "cz+rz+sx": ("cz", ("rz", "sx")),
+    "cz+rz+sx+x": ("cz", ("rz", "sx", "x")),
     "cz+r": ("cz", ("r",)),
     "rzz+rx+rz": ("rzz", ("rx", "rz")),
-    "ecr+rz+sx": ("ecr", ("rz", "sx", "x")),
+    "ecr+rz+sx": ("ecr", ("rz", "sx")),
+    "ecr+rz+sx+x": ("ecr", ("rz", "sx", "x")),
 }
 
 #: Single-qubit gates that are frame changes: zero duration, no error (virtual Z).

@@ -86,7 +86,7 @@ def header_lines(
         "  Readout bit j = nucleus j+1; its polarization is P = 1 - 2·mean(bit).",
         f"Processor: {proc['name']} ({proc['num_qubits']} qubits, native {proc['native_gates']}),",
         f"  layout {mapped.layout_method}.",
-        f"Qubit map (physical): NV = ${q['nv']}",
+        f"Qubit map (physical): NV = ${q['nv']} at the start, ${q['nv_final']} at the end",
     ]
     for label, first, last in zip(
         work.system.labels, q["nuclei_initial"], q["nuclei_final"], strict=True

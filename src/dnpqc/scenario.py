@@ -19,7 +19,12 @@ import numpy as np
 from .engines.typical import TypicalSettings
 from .errors import ScenarioError
 from .imperfections import Imperfections
-from .lattice import dipolar_from_positions, hyperfine_from_position, random_cluster_nm
+from .lattice import (
+    dipolar_from_positions,
+    hyperfine_from_position,
+    random_cluster_nm,
+    transverse_azimuth_deg,
+)
 from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED, MappingSettings
 from .model import Coupling, Nucleus, SpinSystem
 from .noise import NoiseSettings
@@ -398,13 +403,27 @@ def _read_nucleus(t: _Table) -> Nucleus:
             "give exactly one of them"
         )
     if has_pos:
-        position = _read_vector(t.raw("position_nm"), t.key("position_nm"))
-        a_par, a_perp = hyperfine_from_position(position)
+        if t.has("azimuth_deg"):
+            raise ScenarioError(
+                f"`{t.key('azimuth_deg')}` ({label!r}) goes with `a_par_hz`+`a_perp_hz`; "
+                "a nucleus at `position_nm` takes the azimuth of its position"
+            )
+        nucleus = _nucleus_at(label, _read_vector(t.raw("position_nm"), t.key("position_nm")))
     else:
-        a_par, a_perp = t.number("a_par_hz"), t.number("a_perp_hz")
-        position = None
+        nucleus = Nucleus(
+            label,
+            t.number("a_par_hz"),
+            t.number("a_perp_hz"),
+            azimuth_deg=t.number("azimuth_deg", 0.0),
+        )
     t.finish()
-    return Nucleus(label, a_par, a_perp, position)
+    return nucleus
+
+
+def _nucleus_at(label: str, position_nm: tuple[float, float, float]) -> Nucleus:
+    """A nucleus with the point-dipole hyperfine coupling of its position (full secular row)."""
+    a_par, a_perp = hyperfine_from_position(position_nm)
+    return Nucleus(label, a_par, a_perp, position_nm, transverse_azimuth_deg(position_nm))
 
 
 def _read_vector(value: Any, key: str) -> tuple[float, float, float]:
@@ -437,7 +456,7 @@ def _read_lattice(t: _Table, taken: set[str]) -> list[Nucleus]:
         label = f"{prefix}{i}"
         if label in taken:
             raise ScenarioError(f"`{t.key('label_prefix')}` label {label!r} clashes with a nucleus")
-        nuclei.append(Nucleus(label, *hyperfine_from_position(pos), pos))
+        nuclei.append(_nucleus_at(label, pos))
     return nuclei
 
 

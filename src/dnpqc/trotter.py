@@ -351,8 +351,23 @@ def _append_rotation(
         circuit.rzx(theta, a, b)
     elif rot.pauli == "XZ":
         circuit.rzx(theta, b, a)
+    elif "Y" in rot.pauli:
+        _append_with_y_as_x(circuit, rot, parameters)
     else:
         raise ValueError(f"no native rotation for Pauli {rot.pauli} on {rot.qubits}")
+
+
+def _append_with_y_as_x(
+    circuit: QuantumCircuit, rot: PauliRotation, parameters: dict[str, Parameter]
+) -> None:
+    """A two-qubit rotation with one Y (ZY, YZ, XY, YX) by S·X·S† = Y on that qubit."""
+    turned = [q for q, p in zip(rot.qubits, rot.pauli, strict=True) if p == "Y"]
+    for q in turned:
+        circuit.sdg(q)
+    as_x = PauliRotation(rot.pauli.replace("Y", "X"), rot.qubits, rot.angle)
+    _append_rotation(circuit, as_x, parameters)
+    for q in turned:
+        circuit.s(q)
 
 
 def prepare_mixed_nuclei(circuit: QuantumCircuit, nv: int, nuclei: list[int]) -> None:
