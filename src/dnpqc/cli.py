@@ -3,27 +3,40 @@
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 from pathlib import Path
 
 from tqdm import tqdm
 
-from . import codesign, qasm, report
+from . import codesign, output, qasm, report
 from .budget import gate_budget
 from .engines import ENGINES, simulate
 from .engines.circuit import mapped_program
-from .errors import ScenarioError
+from .errors import RunError, ScenarioError
 from .job import RunOutcome, run_scenario
+from .limits import DEFAULT_MAX_WORK, check_work
 from .processor import Processor, make_processor, processor_for_spec
 from .results import saturation
-from .scenario import Scenario, check_point, demo_scenario, load_scenario
-from .store import STORE_NAME, ResultsStore, unfinished_run
-from .sweep import Interrupted
+from .scenario import (
+    Scenario,
+    check_point,
+    demo_scenario,
+    load_scenario,
+    program_work,
+    sweep_work,
+)
+from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_run
+from .sweep import Interrupted, check_scheduler_address
 
 EXIT_USAGE = 2
 EXIT_INTERRUPTED = 130
+
+#: The files `dnpqc run` writes into its --out folder (besides the results store).
+RUN_FILES = ("report.json", "sweep.csv", "spectrum.png", "buildup.png", "engines.png", "budget.png")
+
+#: Runs above this much work print their estimate in the summary.
+LONG_RUN_WORK = 10**6
 
 
 class _Parser(argparse.ArgumentParser):
@@ -31,6 +44,26 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str) -> None:  # type: ignore[override]
         raise ScenarioError(message)
+
+
+def _max_work(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise ScenarioError(f"`--max-work` must be a number, got {text!r}") from None
+    if not value > 0:
+        raise ScenarioError(f"`--max-work` must be > 0, got {text!r}")
+    return value
+
+
+def _add_max_work(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--max-work",
+        type=_max_work,
+        default=DEFAULT_MAX_WORK,
+        help=f"refuse runs estimated above this much work (default {DEFAULT_MAX_WORK:g}: "
+        "points x nodes x cycles x steps, x gates per step for circuit engines)",
+    )
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -109,6 +142,8 @@ def _parser() -> argparse.ArgumentParser:
     sweep.add_argument("scenario", help="scenario TOML file")
     sweep.add_argument("--engine", default="exact", choices=tuple(ENGINES))
     sweep.add_argument("--json", default=None, help="write the JSON here (default: stdout)")
+    for command in (run, budget, comp, sweep):
+        _add_max_work(command)
     return parser
 
 
@@ -116,8 +151,23 @@ def _scenario(path: str | None) -> Scenario:
     return demo_scenario() if path is None else load_scenario(path)
 
 
-def _progress(total: int, desc: str) -> tqdm:
-    return tqdm(total=total, desc=desc, unit="pt", disable=not sys.stderr.isatty(), leave=False)
+def _terminal_columns(stream) -> int:
+    """The terminal's width, or 80 when it reports none (0 columns, or no size at all)."""
+    try:
+        columns = os.get_terminal_size(stream.fileno()).columns
+    except (OSError, ValueError, AttributeError):
+        columns = 0
+    return columns if columns > 0 else 80
+
+
+def _progress(total: int, desc: str, stream=None) -> tqdm:
+    """A progress bar on a terminal (stderr), nothing otherwise."""
+    stream = sys.stderr if stream is None else stream
+    if not stream.isatty():
+        return tqdm(total=total, disable=True)
+    return tqdm(
+        total=total, desc=desc, unit="pt", file=stream, ncols=_terminal_columns(stream), leave=False
+    )
 
 
 def _engines(text: str) -> tuple[str, ...]:
@@ -130,33 +180,79 @@ def _engines(text: str) -> tuple[str, ...]:
     return names
 
 
+def _run_engines(text: str | None, scenario: Scenario) -> tuple[str, ...]:
+    """`--engines`, or the default: exact, trotter, and noisy with a `[processor]` table."""
+    if text is None:
+        return (
+            ("exact", "trotter", "noisy")
+            if scenario.processor is not None
+            else ("exact", "trotter")
+        )
+    return _engines(text)
+
+
+def default_processor_note(scenario: Scenario, engines) -> str | None:
+    """The line that names the processor of a noisy run without a `[processor]` table."""
+    if "noisy" not in engines or scenario.processor is not None:
+        return None
+    name = make_processor({}).name
+    return (
+        f"note: no [processor] table, so the noisy engine runs on the default processor {name} "
+        "with typical figures; add a [processor] table to choose one"
+    )
+
+
+def _check_run_destination(args, scenario: Scenario) -> Path:
+    """The --out folder (default results/<name as one path component>), checked up front."""
+    if args.out is not None:
+        out = output.check_folder(args.out, "--out")
+    else:
+        out = output.check_folder(Path("results") / output.safe_component(scenario.name), "--out")
+    for name in (*RUN_FILES, STORE_NAME):
+        output.check_file(out / name, "--out")
+    return out
+
+
 def _cmd_run(args) -> int:
+    if args.resume and args.fresh:
+        raise ScenarioError("`--resume` and `--fresh` contradict each other; give one of them")
     scenario = _scenario(args.scenario)
-    default = "exact,trotter,noisy" if scenario.processor is not None else "exact,trotter"
-    engines = _engines(args.engines or default)
-    out = Path(args.out) if args.out else Path("results") / scenario.name
+    engines = _run_engines(args.engines, scenario)
+    out = _check_run_destination(args, scenario)
     workers = _workers(args.workers)
+    if args.scheduler is not None:
+        check_scheduler_address(args.scheduler)
+    work = sum(sweep_work(scenario, e) for e in engines)
+    check_work(work, args.max_work, f"this run ({', '.join(engines)})")
     store = _open_store(out, scenario, engines, resume=args.resume, fresh=args.fresh)
     bars = {e: _progress(len(scenario.sweep.values), e) for e in engines}
     try:
-        outcome = run_scenario(
-            scenario,
-            engines,
-            store=store,
-            workers=workers,
-            scheduler=args.scheduler,
-            on_point=lambda e, k: bars[e].update(k),
-        )
+        try:
+            outcome = run_scenario(
+                scenario,
+                engines,
+                store=store,
+                workers=workers,
+                scheduler=args.scheduler,
+                on_point=lambda e, k: bars[e].update(k),
+            )
+        finally:
+            for bar in bars.values():
+                bar.close()
+        write_run(outcome, out)
     except Interrupted as stop:
-        print(f"dnpqc: {stop}; the rest runs with --resume", file=sys.stderr)
+        kept = "; the rest runs with --resume" if store.is_open else "; nothing was written"
+        print(f"dnpqc: {stop}{kept}", file=sys.stderr)
         return EXIT_INTERRUPTED
     finally:
-        for bar in bars.values():
-            bar.close()
         store.close()
-    write_run(outcome, out)
     for line in outcome.summary_lines():
-        print(line)
+        print(output.one_line(line))
+    note = default_processor_note(scenario, engines)
+    if note:
+        print(f"  {note}")
+    if work > LONG_RUN_WORK:
+        print(f"  work: about {work:.3g} units (limit --max-work {args.max_work:.3g})")
     print(f"report: {out / 'report.json'} (plots and sweep.csv beside it)")
     return 0
 
@@ -170,25 +266,25 @@ def _workers(value: int | None) -> int:
 
 
 def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: bool):
-    """The run's results store: new, resumed (`--resume`) or replaced.
+    """The run's results store: new, resumed (`--resume`) or replaced. Nothing is created or
+    deleted here: a new or replacing store is made at its first commit.
 
     Without `--resume`, a previous store is replaced, except an unfinished run of this same
     scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost).
+    A store that another live run holds is refused.
     """
     path = out / STORE_NAME
     if resume and not path.exists():
         raise ScenarioError(f"--resume: no run to resume in {str(out)!r} ({STORE_NAME} missing)")
-    if path.exists() and not resume:
-        count = len(scenario.sweep.values)
-        if not fresh and unfinished_run(path, scenario.digest, count):
-            raise ScenarioError(
-                f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
-                "it with --resume or discard it with --fresh"
-            )
-        for suffix in ("", "-wal", "-shm"):
-            Path(f"{path}{suffix}").unlink(missing_ok=True)
+    check_unlocked(path)
+    replace = path.exists() and not resume
+    if replace and not fresh and unfinished_run(path, scenario.digest, len(scenario.sweep.values)):
+        raise ScenarioError(
+            f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
+            "it with --resume or discard it with --fresh"
+        )
     shape = (scenario.cycles, scenario.system.num_nuclei)
-    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape)
+    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape, replace=replace)
 
 
 def write_run(outcome: RunOutcome, out: Path) -> None:
@@ -209,25 +305,30 @@ def write_run(outcome: RunOutcome, out: Path) -> None:
         figures["budget.png"] = report.budget_figure(outcome.compare)
     payload = outcome.to_json()
     csv_text = report.sweep_csv(list(outcome.results.values()))
+    output.remove_stale_temps(out, RUN_FILES)
     for name, fig in figures.items():
-        report.save_figure(out / name, fig)
-    report.write_text(out / "sweep.csv", csv_text)
-    report.write_json(out / "report.json", payload)
+        output.write_figure(out / name, fig)
+    output.write_text(out / "sweep.csv", csv_text)
+    output.write_json(out / "report.json", payload)
 
 
 def _cmd_sweep(args) -> int:
     scenario = load_scenario(args.scenario)
+    destination = output.check_file(args.json, "--json") if args.json is not None else None
+    check_work(sweep_work(scenario, args.engine), args.max_work, f"the {args.engine} sweep")
+    note = default_processor_note(scenario, (args.engine,))
+    if note:
+        print(f"dnpqc: {note}", file=sys.stderr)
     bar = _progress(len(scenario.sweep.values), args.engine)
     try:
         result = simulate(scenario, args.engine, on_point=bar.update)
     finally:
         bar.close()
     data = result.to_dict()
-    if args.json:
-        report.write_json(Path(args.json), data)
+    if destination is not None:
+        output.write_json(destination, data)
     else:
-        json.dump(data, sys.stdout)
-        sys.stdout.write("\n")
+        sys.stdout.write(output.json_text(data, indent=None))
     return 0
 
 
@@ -241,11 +342,13 @@ def scenario_processor(scenario: Scenario, spec: str | None) -> Processor:
 
 def _cmd_budget(args) -> int:
     scenario = load_scenario(args.scenario)
+    destination = output.check_file(args.json, "--json") if args.json is not None else None
     processor = scenario_processor(scenario, args.processor)
     specs = [s.strip() for s in args.compare.split(",") if s.strip()] if args.compare else []
     compared = [processor_for_spec(s, processor) for s in specs]
-    if args.target_error is not None and not args.target_error > 0:
-        raise ScenarioError(f"`--target-error` must be > 0, got {args.target_error:g}")
+    if args.target_error is not None and not 0 < args.target_error < float("inf"):
+        raise ScenarioError(f"`--target-error` must be > 0 and finite, got {args.target_error:g}")
+    check_work(program_work(scenario) * (1 + len(compared)), args.max_work, "this budget")
     data = codesign.program_budget(scenario, processor)
     data["trotter_error"] = codesign.trotter_error(scenario)
     if compared:
@@ -254,10 +357,10 @@ def _cmd_budget(args) -> int:
         data["steps_advice"] = codesign.steps_advice(scenario, processor, args.target_error)
     if args.scaling:
         data["scaling"] = codesign.scaling_table(scenario, processor)
-    if args.json:
-        report.write_json(Path(args.json), data)
+    if destination is not None:
+        output.write_json(destination, data)
     for line in report.budget_lines(data):
-        print(line)
+        print(output.one_line(line))
     return 0
 
 
@@ -278,20 +381,22 @@ def compile_text(
 
 def _cmd_compile(args) -> int:
     scenario = load_scenario(args.scenario)
+    destination = output.check_file(args.output, "-o") if args.output is not None else None
     processor = scenario_processor(scenario, args.processor)
+    check_work(program_work(scenario), args.max_work, "this program")
     text = compile_text(
         scenario, processor, bind=args.bind, measure_each_cycle=args.measure_each_cycle
     )
-    if args.output:
-        report.write_text(Path(args.output), text)
-        print(f"program: {args.output}")
+    if destination is not None:
+        output.write_text(destination, text)
+        print(f"program: {output.one_line(str(destination))}")
     else:
         sys.stdout.write(text)
     return 0
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point; returns the exit code (0 ok, 2 bad input)."""
+    """Entry point; returns the exit code (0 ok, 2 bad input or refused run, 130 Ctrl-C)."""
     try:
         args = _parser().parse_args(argv)
         handler = {
@@ -301,9 +406,12 @@ def main(argv: list[str] | None = None) -> int:
             "compile": _cmd_compile,
         }[args.command]
         return handler(args)
-    except ScenarioError as exc:
-        print(f"dnpqc: error: {exc}", file=sys.stderr)
+    except (ScenarioError, RunError) as exc:
+        print(f"dnpqc: error: {output.one_line(str(exc))}", file=sys.stderr)
         return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("dnpqc: interrupted; nothing was written", file=sys.stderr)
+        return EXIT_INTERRUPTED
 
 
 if __name__ == "__main__":

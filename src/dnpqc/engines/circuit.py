@@ -166,7 +166,8 @@ def simulate_trotter(
         "trotter",
         density_matrix_bytes(q),
         f"a density matrix of {q} qubits",
-        "use the typical engine (--engine typical) for the physics, or the noisy "
+        "use the typical engine (`--engines typical` for run, `--engine typical` for "
+        "sweep) for the physics, or the noisy "
         'engine with [noise] method = "trajectories"',
     )
     program = compile_program(scenario)

@@ -97,7 +97,7 @@ def simulate_exact(
         "exact",
         4 * 16 * 4**system.num_qubits,
         f"NV + {system.num_nuclei} nuclei",
-        "use the typical engine (--engine typical)",
+        "use the typical engine (`--engines typical` for run, `--engine typical` for sweep)",
     )
     props = _Propagators(system)
     nominal = scenario.schedule()
