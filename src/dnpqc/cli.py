@@ -50,9 +50,9 @@ def _max_work(text: str) -> float:
     try:
         value = float(text)
     except ValueError:
-        raise ScenarioError(f"`--max-work` must be a number, got {text!r}") from None
+        value = float("nan")
     if not value > 0:
-        raise ScenarioError(f"`--max-work` must be > 0, got {text!r}")
+        raise argparse.ArgumentTypeError(f"`--max-work` must be a number > 0, got {text!r}")
     return value
 
 

@@ -239,7 +239,10 @@ class _Table:
 
 def _brief(value: Any) -> str:
     """`repr(value)`, cut to 60 characters for a message."""
-    text = repr(value)
+    try:
+        text = repr(value)
+    except ValueError:  # an integer beyond Python's decimal conversion limit (e.g. from hex)
+        return f"an integer of {value.bit_length()} bits"
     return text if len(text) <= 60 else f"{text[:57]}..."
 
 
