@@ -126,7 +126,7 @@ def test_memory_guard_refusal_leaves_no_store_and_no_folder(tmp_path, capsys):
     path.write_text(_big_cluster(24))
     out = tmp_path / "out"
     argv = ["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "1"]
-    one_line_exit_2(argv, capsys, "the exact engine needs about")
+    one_line_exit_2([*argv, "--max-work", "1e40"], capsys, "the exact engine needs about")
     assert not out.exists()
 
 
@@ -137,7 +137,7 @@ def test_refused_run_keeps_a_previous_finished_run(tiny, tmp_path, capsys):
     before = {p: (out / p).read_bytes() for p in files_in(out) if not p.endswith("-shm")}
     big = tmp_path / "big.toml"
     big.write_text(_big_cluster(24))
-    one_line_exit_2(["run", str(big), *run[2:]], capsys, "needs about")
+    one_line_exit_2(["run", str(big), *run[2:], "--max-work", "1e40"], capsys, "needs about")
     assert {p: (out / p).read_bytes() for p in before} == before
 
 
@@ -282,20 +282,25 @@ def test_compile_bind_must_be_finite(tiny, capsys, no_work, value):
 
 
 def test_work_limit_refuses_with_the_estimate_and_a_flag_raises_it(tiny, tmp_path, capsys):
+    # 10000 points x 1 node x (2 cycles x 601 steps x 6 gates) x 4^2 = 1.15e9
     tiny.write_text(
         TINY.replace("points = 3", "points = 10000").replace("steps = 8", "steps = 600")
     )
-    err = one_line_exit_2(["sweep", str(tiny)], capsys, "more than --max-work 1e+07")
-    assert "needs about 1.2e+07 units of work" in err
+    err = one_line_exit_2(["sweep", str(tiny), "--max-work", "1e9"], capsys, "more than --max-work")
+    assert "needs about 1.15e+09 units of work" in err
     tiny.write_text(TINY)
     path = tmp_path / "s.json"
     one_line_exit_2(["sweep", str(tiny), "--max-work", "10", "--json", str(path)], capsys)
     assert not path.exists()
-    assert main(["sweep", str(tiny), "--max-work", "1e3", "--json", str(path)]) == 0
-    one_line_exit_2(["compile", str(tiny), "--max-work", "10"], capsys, "this program needs")
-    one_line_exit_2(
-        ["run", str(tiny), "--max-work", "-1"], capsys, "`--max-work` must be a number > 0"
-    )
+    assert main(["sweep", str(tiny), "--max-work", "1e5", "--json", str(path)]) == 0
+    one_line_exit_2(["run", str(tiny), "--max-work", "-1"], capsys, "`--max-work` must be a number")
+
+
+def test_program_size_is_bounded_before_it_is_built(tiny, capsys, no_work):
+    tiny.write_text(TINY.replace("count = 2", "count = 10000").replace("steps = 8", "steps = 1000"))
+    for argv in (["compile", str(tiny)], ["budget", str(tiny)], ["run", str(tiny)]):
+        one_line_exit_2(argv, capsys, "the program would have about 6.01e+07 gates")
+    one_line_exit_2(["sweep", str(tiny), "--engine", "trotter"], capsys, "more than 5e+06")
 
 
 def test_ctrl_c_during_sweep_is_one_line_and_exit_130(tiny, tmp_path, capsys, monkeypatch):
@@ -348,7 +353,7 @@ def test_memory_message_of_run_names_runs_flag(tmp_path, capsys):
     path = tmp_path / "big.toml"
     path.write_text(_big_cluster(24))
     argv = ["run", str(path), "--out", str(tmp_path / "o"), "--engines", "exact"]
-    one_line_exit_2([*argv, "--workers", "1"], capsys, "`--engines typical` for run")
+    one_line_exit_2([*argv, "--max-work", "1e40"], capsys, "`--engines typical` for run")
 
 
 class _Terminal:

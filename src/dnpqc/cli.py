@@ -15,7 +15,7 @@ from .engines import ENGINES, simulate
 from .engines.circuit import mapped_program
 from .errors import RunError, ScenarioError
 from .job import RunOutcome, run_scenario
-from .limits import DEFAULT_MAX_WORK, check_work
+from .limits import DEFAULT_MAX_WORK, check_program_size, check_work
 from .processor import Processor, make_processor, processor_for_spec
 from .results import saturation
 from .scenario import (
@@ -23,7 +23,7 @@ from .scenario import (
     check_point,
     demo_scenario,
     load_scenario,
-    program_work,
+    program_gates,
     sweep_work,
 )
 from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_run
@@ -35,8 +35,8 @@ EXIT_INTERRUPTED = 130
 #: The files `dnpqc run` writes into its --out folder (besides the results store).
 RUN_FILES = ("report.json", "sweep.csv", "spectrum.png", "buildup.png", "engines.png", "budget.png")
 
-#: Runs above this much work print their estimate in the summary.
-LONG_RUN_WORK = 10**6
+#: Runs above this much work (about a minute) print their estimate in the summary.
+LONG_RUN_WORK = 10**10
 
 
 class _Parser(argparse.ArgumentParser):
@@ -61,8 +61,8 @@ def _add_max_work(parser: argparse.ArgumentParser) -> None:
         "--max-work",
         type=_max_work,
         default=DEFAULT_MAX_WORK,
-        help=f"refuse runs estimated above this much work (default {DEFAULT_MAX_WORK:g}: "
-        "points x nodes x cycles x steps, x gates per step for circuit engines)",
+        help=f"refuse runs estimated above this much work (default {DEFAULT_MAX_WORK:g} "
+        "state-element updates: points x nodes x gates x state size)",
     )
 
 
@@ -142,7 +142,7 @@ def _parser() -> argparse.ArgumentParser:
     sweep.add_argument("scenario", help="scenario TOML file")
     sweep.add_argument("--engine", default="exact", choices=tuple(ENGINES))
     sweep.add_argument("--json", default=None, help="write the JSON here (default: stdout)")
-    for command in (run, budget, comp, sweep):
+    for command in (run, sweep):
         _add_max_work(command)
     return parser
 
@@ -213,6 +213,16 @@ def _check_run_destination(args, scenario: Scenario) -> Path:
     return out
 
 
+def _check_engines_work(scenario: Scenario, engines, limit: float, what: str) -> int:
+    """The work of `engines` over the sweep, refused beyond `limit`; circuit engines also
+    need a program of bounded size."""
+    if {"trotter", "noisy"} & set(engines):
+        check_program_size(program_gates(scenario))
+    work = sum(sweep_work(scenario, e) for e in engines)
+    check_work(work, limit, what)
+    return work
+
+
 def _cmd_run(args) -> int:
     if args.resume and args.fresh:
         raise ScenarioError("`--resume` and `--fresh` contradict each other; give one of them")
@@ -222,8 +232,7 @@ def _cmd_run(args) -> int:
     workers = _workers(args.workers)
     if args.scheduler is not None:
         check_scheduler_address(args.scheduler)
-    work = sum(sweep_work(scenario, e) for e in engines)
-    check_work(work, args.max_work, f"this run ({', '.join(engines)})")
+    work = _check_engines_work(scenario, engines, args.max_work, f"this run ({', '.join(engines)})")
     store = _open_store(out, scenario, engines, resume=args.resume, fresh=args.fresh)
     bars = {e: _progress(len(scenario.sweep.values), e) for e in engines}
     try:
@@ -315,7 +324,7 @@ def write_run(outcome: RunOutcome, out: Path) -> None:
 def _cmd_sweep(args) -> int:
     scenario = load_scenario(args.scenario)
     destination = output.check_file(args.json, "--json") if args.json is not None else None
-    check_work(sweep_work(scenario, args.engine), args.max_work, f"the {args.engine} sweep")
+    _check_engines_work(scenario, (args.engine,), args.max_work, f"the {args.engine} sweep")
     note = default_processor_note(scenario, (args.engine,))
     if note:
         print(f"dnpqc: {note}", file=sys.stderr)
@@ -348,7 +357,7 @@ def _cmd_budget(args) -> int:
     compared = [processor_for_spec(s, processor) for s in specs]
     if args.target_error is not None and not 0 < args.target_error < float("inf"):
         raise ScenarioError(f"`--target-error` must be > 0 and finite, got {args.target_error:g}")
-    check_work(program_work(scenario) * (1 + len(compared)), args.max_work, "this budget")
+    check_program_size(program_gates(scenario))
     data = codesign.program_budget(scenario, processor)
     data["trotter_error"] = codesign.trotter_error(scenario)
     if compared:
@@ -383,7 +392,7 @@ def _cmd_compile(args) -> int:
     scenario = load_scenario(args.scenario)
     destination = output.check_file(args.output, "-o") if args.output is not None else None
     processor = scenario_processor(scenario, args.processor)
-    check_work(program_work(scenario), args.max_work, "this program")
+    check_program_size(program_gates(scenario))
     text = compile_text(
         scenario, processor, bind=args.bind, measure_each_cycle=args.measure_each_cycle
     )

@@ -32,14 +32,27 @@ MAX_LABEL_CHARS = 64
 MAX_TEXT_CHARS = 1_000
 MAX_DESCRIPTION_CHARS = 10_000
 
-#: Default of `--max-work`: Trotter steps (exact, typical) or gates (circuit engines) simulated.
-DEFAULT_MAX_WORK = 10**7
+MAX_PROGRAM_GATES = 5_000_000  # gates of a compiled program (qiskit holds each one)
+
+#: Default of `--max-work`, in state-element updates (see `scenario.sweep_work`): about ten
+#: minutes of the trotter engine on this kind of machine, 60 times the bundled demo.
+DEFAULT_MAX_WORK = 10**11
 
 
 def check_work(work: int, limit: float, what: str) -> None:
     """Refuse work beyond `limit` (`--max-work`), giving the estimate and how to lower it."""
     if work > limit:
         raise RunError(
-            f"{what} needs about {work:.3g} units of work, more than --max-work {limit:.3g}; "
-            "lower sweep.points, cycle.count or trotter.steps, or raise --max-work"
+            f"{what} needs about {work:.3g} units of work (points x nodes x gates x state size), "
+            f"more than --max-work {limit:.3g}; lower sweep.points, cycle.count, trotter.steps "
+            "or the nuclei, or raise --max-work"
+        )
+
+
+def check_program_size(gates: int) -> None:
+    """Refuse a compiled program beyond MAX_PROGRAM_GATES, before it is built."""
+    if gates > MAX_PROGRAM_GATES:
+        raise RunError(
+            f"the program would have about {gates:.3g} gates (cycles x steps per cycle x gates "
+            f"per step), more than {MAX_PROGRAM_GATES:.3g}; lower cycle.count or trotter.steps"
         )

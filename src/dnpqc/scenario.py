@@ -826,10 +826,6 @@ def _check_sweep_values(protocol: Protocol, sweep: Sweep) -> None:
             )
 
 
-#: Engines that simulate the compiled circuit: their work is counted in gates.
-CIRCUIT_ENGINES = ("trotter", "noisy")
-
-
 def steps_per_cycle(scenario: Scenario) -> int:
     """Trotter steps of one cycle: the block's steps times its repeats (a pulse counts one)."""
     schedule = scenario.schedule()
@@ -845,17 +841,16 @@ def gates_per_step(system: SpinSystem) -> int:
     return 3 + 3 * system.num_nuclei + 4 * len(system.couplings)
 
 
-def program_work(scenario: Scenario) -> int:
+def program_gates(scenario: Scenario) -> int:
     """Gates of the compiled program, about: cycles × steps per cycle × gates per step."""
     return scenario.cycles * steps_per_cycle(scenario) * gates_per_step(scenario.system)
 
 
 def sweep_work(scenario: Scenario, engine: str) -> int:
-    """Work of one engine over the whole sweep: points × imperfection nodes × cycles × steps,
-    times the gates per step for circuit engines and the random states for `typical`."""
-    per_point = scenario.cycles * steps_per_cycle(scenario)
-    if engine in CIRCUIT_ENGINES:
-        per_point *= gates_per_step(scenario.system)
-    elif engine == "typical":
-        per_point *= scenario.typical.states
-    return len(scenario.sweep.values) * len(scenario.imperfections.nodes()) * per_point
+    """Work of one engine over the sweep, in state-element updates: points × imperfection
+    nodes × program gates × the state's size (4^q for a density matrix, states × 2^q for the
+    typical engine's random states)."""
+    q = scenario.system.num_qubits
+    state = scenario.typical.states * 2**q if engine == "typical" else 4**q
+    nodes = len(scenario.imperfections.nodes())
+    return len(scenario.sweep.values) * nodes * program_gates(scenario) * state
