@@ -28,6 +28,8 @@ def _no_temps(folder: Path) -> bool:
         (lambda d: Path("/dev/null"), "virtual file system"),
         (lambda d: _a_file(d) / "below.json", "is a file, so nothing"),
         (lambda d: d / ("x" * 230), "longer than 200 bytes"),
+        (lambda d: d / ("x" * 300) / "a.json", "component is longer than 255 bytes"),
+        (lambda d: d / "/".join(["x" * 200] * 25), "path is longer than 4000 bytes"),
         (lambda d: f"{d}/a\0b", "without NUL"),
         (lambda d: "", "non-empty path"),
         (lambda d: d / "..", "must name a file"),

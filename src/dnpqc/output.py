@@ -33,6 +33,10 @@ _ALLOWED_UNDER_VIRTUAL = ("/dev/shm",)
 #: Longest destination file name, in bytes: room for the temporary name's prefix and suffix.
 MAX_NAME_BYTES = 200
 
+#: File-system limits of Linux (NAME_MAX, PATH_MAX): beyond them every call fails.
+MAX_COMPONENT_BYTES = 255
+MAX_PATH_BYTES = 4000
+
 _TEMP_SUFFIX = ".tmp"
 
 
@@ -72,6 +76,10 @@ def _check_common(option: str, path: str | Path) -> Path:
     if not text or "\0" in text:
         raise _refuse(option, path, "must be a non-empty path without NUL characters")
     p = Path(text)
+    if any(len(os.fsencode(part)) > MAX_COMPONENT_BYTES for part in p.parts):
+        raise _refuse(option, path, f"a path component is longer than {MAX_COMPONENT_BYTES} bytes")
+    if len(os.fsencode(text)) > MAX_PATH_BYTES:
+        raise _refuse(option, path, f"the path is longer than {MAX_PATH_BYTES} bytes")
     root = _on_virtual_fs(p)
     if root is not None:
         raise _refuse(option, path, f"{root} is a virtual file system, not a place for results")
