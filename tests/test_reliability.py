@@ -419,3 +419,26 @@ def test_one_line_guard_in_main_escapes_control_characters(capsys, tmp_path):
     # a message that carries user text can never print two lines
     one_line_exit_2(["sweep", str(tmp_path / "a\nb.toml")], capsys, "cannot read scenario")
     assert output.one_line("a\nb") == "a\\nb"
+
+
+def test_tiny_angle_coefficients_are_refused_not_lost(tmp_path, capsys):
+    # qiskit 2.6 drops the variable of `1e-15 * Parameter("x")` (measured); a frequency of
+    # 1e-15 Hz under a swept tau would silently give wrong angles
+    from qiskit.circuit import Parameter
+
+    from dnpqc.errors import ScenarioError
+    from dnpqc.expr import Poly
+
+    x = Parameter("x")
+    assert float(Poly.variable("x", 1e-12).expression({"x": x}).bind({x: 2.0})) == 2e-12
+    with pytest.raises(ScenarioError, match="coefficient below 1e-13"):
+        Poly.variable("x", 1e-15).expression({"x": x})
+    path = tmp_path / "p.toml"
+    pulsed = TINY.replace('protocol = "spin-lock"\nrabi_hz = 530e3', 'protocol = "pulsed"')
+    pulsed = pulsed.replace('parameter = "rabi_hz"\nstart = 515e3\nstop = 550e3', "")
+    pulsed = pulsed.replace("[sweep]", '[sweep]\nparameter = "tau_s"\nstart = 2e-6\nstop = 3e-6')
+    pulsed = pulsed.replace("interaction_time_s = 20e-6", "blocks = 2")
+    path.write_text(pulsed.replace("a_perp_hz = 20e3", "a_perp_hz = 1e-15"))
+    one_line_exit_2(["sweep", str(path), "--engine", "trotter"], capsys, "coefficient below")
+    path.write_text(pulsed)
+    assert main(["sweep", str(path), "--engine", "trotter"]) == 0
