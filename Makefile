@@ -3,7 +3,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test lint bench clean circuits
+.PHONY: demo test lint bench clean circuits fuzz
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -26,6 +26,10 @@ circuits: $(STAMP)
 	@for p in $(CIRCUIT_PROCESSORS); do \
 	  $(BIN)/dnpqc compile $(DEMO_SCENARIO) --processor $$p -o circuits/demo-$$p.qasm || exit 1; \
 	done
+
+fuzz: $(STAMP)
+	DNPQC_FUZZ_EXAMPLES=$${DNPQC_FUZZ_EXAMPLES:-2000} $(BIN)/python -m pytest -q -p no:cacheprovider \
+	  tests/test_fuzz.py --hypothesis-show-statistics
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/run.py

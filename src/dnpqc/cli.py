@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 from dataclasses import replace
@@ -11,25 +10,35 @@ from pathlib import Path
 
 from tqdm import tqdm
 
-from . import codesign, qasm, report
+from . import codesign, output, qasm, report
 from .budget import gate_budget
-from .engines import (
-    ENGINE_ALIASES,
-    ENGINES,
-    engine_name,
-)
-from .errors import ScenarioError
+from .engines import ENGINE_ALIASES, ENGINES, engine_name
+from .errors import RunError, ScenarioError
 from .job import RunOutcome, run_scenario, scenario_processor, scenario_programs, simulate
-from .processor import Processor, processor_for_spec
+from .limits import DEFAULT_MAX_WORK, check_program_size, check_work
+from .processor import Processor, make_processor, processor_for_spec
 from .program import Program
 from .results import saturation
-from .scenario import Scenario, check_point, demo_scenario, load_scenario
-from .store import STORE_NAME, ResultsStore, unfinished_run
+from .scenario import (
+    Scenario,
+    check_point,
+    demo_scenario,
+    load_scenario,
+    program_gates,
+    sweep_work,
+)
+from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_run
 from .strategy import Programs, approximation_error
-from .sweep import Interrupted
+from .sweep import Interrupted, check_scheduler_address
 
 EXIT_USAGE = 2
 EXIT_INTERRUPTED = 130
+
+#: The files `dnpqc run` writes into its --out folder (besides the results store).
+RUN_FILES = ("report.json", "sweep.csv", "spectrum.png", "buildup.png", "engines.png", "budget.png")
+
+#: Runs above this much work (about a minute) print their estimate in the summary.
+LONG_RUN_WORK = 10**10
 
 
 class _Parser(argparse.ArgumentParser):
@@ -37,6 +46,26 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str) -> None:  # type: ignore[override]
         raise ScenarioError(message)
+
+
+def _max_work(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"`--max-work` must be a number > 0, got {text!r}")
+    return value
+
+
+def _add_max_work(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--max-work",
+        type=_max_work,
+        default=DEFAULT_MAX_WORK,
+        help=f"refuse runs estimated above this much work (default {DEFAULT_MAX_WORK:g} "
+        "state-element updates: points x nodes x gates x state size)",
+    )
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -120,6 +149,8 @@ def _parser() -> argparse.ArgumentParser:
     sweep.add_argument("scenario", help="scenario TOML file")
     sweep.add_argument("--engine", default="exact", choices=(*ENGINES, *ENGINE_ALIASES))
     sweep.add_argument("--json", default=None, help="write the JSON here (default: stdout)")
+    for command in (run, sweep):
+        _add_max_work(command)
     return parser
 
 
@@ -127,8 +158,23 @@ def _scenario(path: str | None) -> Scenario:
     return demo_scenario() if path is None else load_scenario(path)
 
 
-def _progress(total: int, desc: str) -> tqdm:
-    return tqdm(total=total, desc=desc, unit="pt", disable=not sys.stderr.isatty(), leave=False)
+def _terminal_columns(stream) -> int:
+    """The terminal's width, or 80 when it reports none (0 columns, or no size at all)."""
+    try:
+        columns = os.get_terminal_size(stream.fileno()).columns
+    except (OSError, ValueError, AttributeError):
+        columns = 0
+    return columns if columns > 0 else 80
+
+
+def _progress(total: int, desc: str, stream=None) -> tqdm:
+    """A progress bar on a terminal (stderr), nothing otherwise."""
+    stream = sys.stderr if stream is None else stream
+    if not stream.isatty():
+        return tqdm(total=total, disable=True)
+    return tqdm(
+        total=total, desc=desc, unit="pt", file=stream, ncols=_terminal_columns(stream), leave=False
+    )
 
 
 def _engines(text: str) -> tuple[str, ...]:
@@ -140,33 +186,88 @@ def _engines(text: str) -> tuple[str, ...]:
     return tuple(dict.fromkeys(engine_name(e) for e in names))
 
 
+def _run_engines(text: str | None, scenario: Scenario) -> tuple[str, ...]:
+    """`--engines`, or the default: exact, trotter, and noisy with a `[processor]` table."""
+    if text is None:
+        return (
+            ("exact", "trotter", "noisy")
+            if scenario.processor is not None
+            else ("exact", "trotter")
+        )
+    return _engines(text)
+
+
+def default_processor_note(scenario: Scenario, engines) -> str | None:
+    """The line that names the processor of a noisy run without a `[processor]` table."""
+    if "noisy" not in engines or scenario.processor is not None:
+        return None
+    name = make_processor({}).name
+    return (
+        f"note: no [processor] table, so the noisy engine runs on the default processor {name} "
+        "with typical figures; add a [processor] table to choose one"
+    )
+
+
+def _check_run_destination(args, scenario: Scenario) -> Path:
+    """The --out folder (default results/<name as one path component>), checked up front."""
+    if args.out is not None:
+        out = output.check_folder(args.out, "--out")
+    else:
+        out = output.check_folder(Path("results") / output.safe_component(scenario.name), "--out")
+    for name in (*RUN_FILES, STORE_NAME):
+        output.check_file(out / name, "--out")
+    return out
+
+
+def _check_engines_work(scenario: Scenario, engines, limit: float, what: str) -> int:
+    """The work of `engines` over the sweep, refused beyond `limit`; circuit engines also
+    need a program of bounded size."""
+    if {"trotter", "noisy"} & set(engines):
+        check_program_size(program_gates(scenario))
+    work = sum(sweep_work(scenario, e) for e in engines)
+    check_work(work, limit, what)
+    return work
+
+
 def _cmd_run(args) -> int:
+    if args.resume and args.fresh:
+        raise ScenarioError("`--resume` and `--fresh` contradict each other; give one of them")
     scenario = _scenario(args.scenario)
-    default = "exact,trotter,noisy" if scenario.processor is not None else "exact,trotter"
-    engines = _engines(args.engines or default)
-    out = Path(args.out) if args.out else Path("results") / scenario.name
+    engines = _run_engines(args.engines, scenario)
+    out = _check_run_destination(args, scenario)
     workers = _workers(args.workers)
+    if args.scheduler is not None:
+        check_scheduler_address(args.scheduler)
+    work = _check_engines_work(scenario, engines, args.max_work, f"this run ({', '.join(engines)})")
     store = _open_store(out, scenario, engines, resume=args.resume, fresh=args.fresh)
     bars = {e: _progress(len(scenario.sweep.values), e) for e in engines}
     try:
-        outcome = run_scenario(
-            scenario,
-            engines,
-            store=store,
-            workers=workers,
-            scheduler=args.scheduler,
-            on_point=lambda e, k: bars[e].update(k),
-        )
+        try:
+            outcome = run_scenario(
+                scenario,
+                engines,
+                store=store,
+                workers=workers,
+                scheduler=args.scheduler,
+                on_point=lambda e, k: bars[e].update(k),
+            )
+        finally:
+            for bar in bars.values():
+                bar.close()
+        write_run(outcome, out)
     except Interrupted as stop:
-        print(f"dnpqc: {stop}; the rest runs with --resume", file=sys.stderr)
+        kept = "; the rest runs with --resume" if store.is_open else "; nothing was written"
+        print(f"dnpqc: {stop}{kept}", file=sys.stderr)
         return EXIT_INTERRUPTED
     finally:
-        for bar in bars.values():
-            bar.close()
         store.close()
-    write_run(outcome, out)
     for line in outcome.summary_lines():
-        print(line)
+        print(output.one_line(line))
+    note = default_processor_note(scenario, engines)
+    if note:
+        print(f"  {note}")
+    if work > LONG_RUN_WORK:
+        print(f"  work: about {work:.3g} units (limit --max-work {args.max_work:.3g})")
     print(f"report: {out / 'report.json'} (plots and sweep.csv beside it)")
     return 0
 
@@ -180,25 +281,25 @@ def _workers(value: int | None) -> int:
 
 
 def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: bool):
-    """The run's results store: new, resumed (`--resume`) or replaced.
+    """The run's results store: new, resumed (`--resume`) or replaced. Nothing is created or
+    deleted here: a new or replacing store is made at its first commit.
 
     Without `--resume`, a previous store is replaced, except an unfinished run of this same
     scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost).
+    A store that another live run holds is refused.
     """
     path = out / STORE_NAME
     if resume and not path.exists():
         raise ScenarioError(f"--resume: no run to resume in {str(out)!r} ({STORE_NAME} missing)")
-    if path.exists() and not resume:
-        count = len(scenario.sweep.values)
-        if not fresh and unfinished_run(path, scenario.digest, count):
-            raise ScenarioError(
-                f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
-                "it with --resume or discard it with --fresh"
-            )
-        for suffix in ("", "-wal", "-shm"):
-            Path(f"{path}{suffix}").unlink(missing_ok=True)
+    check_unlocked(path)
+    replace = path.exists() and not resume
+    if replace and not fresh and unfinished_run(path, scenario.digest, len(scenario.sweep.values)):
+        raise ScenarioError(
+            f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
+            "it with --resume or discard it with --fresh"
+        )
     shape = (scenario.cycles, scenario.system.num_nuclei)
-    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape)
+    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape, replace=replace)
 
 
 def write_run(outcome: RunOutcome, out: Path) -> None:
@@ -219,39 +320,46 @@ def write_run(outcome: RunOutcome, out: Path) -> None:
         figures["budget.png"] = report.budget_figure(outcome.compare)
     payload = outcome.to_json()
     csv_text = report.sweep_csv(list(outcome.results.values()))
+    output.remove_stale_temps(out, RUN_FILES)
     for name, fig in figures.items():
-        report.save_figure(out / name, fig)
-    report.write_text(out / "sweep.csv", csv_text)
-    report.write_json(out / "report.json", payload)
+        output.write_figure(out / name, fig)
+    output.write_text(out / "sweep.csv", csv_text)
+    output.write_json(out / "report.json", payload)
 
 
 def _cmd_sweep(args) -> int:
     scenario = load_scenario(args.scenario)
     engine = engine_name(args.engine)
+    destination = output.check_file(args.json, "--json") if args.json is not None else None
+    _check_engines_work(scenario, (engine,), args.max_work, f"the {engine} sweep")
+    note = default_processor_note(scenario, (engine,))
+    if note:
+        print(f"dnpqc: {note}", file=sys.stderr)
     bar = _progress(len(scenario.sweep.values), engine)
     try:
         result = simulate(scenario, engine, on_point=bar.update)
     finally:
         bar.close()
     data = result.to_dict()
-    if args.json:
-        report.write_json(Path(args.json), data)
+    if destination is not None:
+        output.write_json(destination, data)
     else:
-        json.dump(data, sys.stdout)
-        sys.stdout.write("\n")
+        sys.stdout.write(output.json_text(data, indent=None))
     return 0
 
 
 def _cmd_budget(args) -> int:
     scenario = load_scenario(args.scenario)
-    if args.target_error is not None and not args.target_error > 0:
-        raise ScenarioError(f"`--target-error` must be > 0, got {args.target_error:g}")
+    destination = output.check_file(args.json, "--json") if args.json is not None else None
+    if args.target_error is not None and not 0 < args.target_error < float("inf"):
+        raise ScenarioError(f"`--target-error` must be > 0 and finite, got {args.target_error:g}")
     if args.target_error is not None and scenario.compile.strategy == "auto":
         settings = replace(scenario.compile, target_error=args.target_error)
         scenario = replace(scenario, compile=settings)
     processor = scenario_processor(scenario, args.processor)
     specs = [s.strip() for s in args.compare.split(",") if s.strip()] if args.compare else []
     compared = [processor_for_spec(s, processor) for s in specs]
+    check_program_size(program_gates(scenario))
     programs = scenario_programs(scenario, args.processor)
     job = programs.job
     program = programs.mapped(processor, nominal=True)
@@ -268,10 +376,10 @@ def _cmd_budget(args) -> int:
         data["steps_advice"] = codesign.steps_advice(job, processor, args.target_error)
     if args.scaling:
         data["scaling"] = codesign.scaling_table(job, processor)
-    if args.json:
-        report.write_json(Path(args.json), data)
+    if destination is not None:
+        output.write_json(destination, data)
     for line in report.budget_lines(data):
-        print(line)
+        print(output.one_line(line))
     return 0
 
 
@@ -331,37 +439,71 @@ def _hardware_program(scenario: Scenario, processor: Processor, bind: float | No
 
 
 def program_file_name(name: str, parameter: str, value: float) -> str:
-    """File name of the program at one swept value: `<name>_<parameter>_<value>.qasm`."""
-    return f"{name}_{parameter}_{value:.9g}.qasm"
+    """File name of the program at one swept value: `<name>_<parameter>_<value>.qasm` (the
+    scenario name made one safe path component)."""
+    return f"{output.safe_component(name)}_{parameter}_{value:.9g}.qasm"
+
+
+def _compile_folder(path: str | None, strategy: str, bind: float | None) -> Path | None:
+    """The `-o` folder of a per-value program (checked now), or None for a single file.
+
+    cycle-unitary without `--bind` needs a folder; `auto` takes `-o` as a folder when it names
+    an existing folder or ends with a separator (checked again once the strategy is chosen).
+    """
+    if bind is not None or strategy == "trotter":
+        return None
+    if strategy == "cycle-unitary" and path is None:
+        raise ScenarioError(
+            "strategy 'cycle-unitary' writes one program per sweep value: give `-o DIR` for all "
+            "of them, or `--bind VALUE` for one"
+        )
+    if path is None:
+        return None
+    folder_like = Path(path).is_dir() or path.endswith(("/", os.sep))
+    if strategy == "cycle-unitary" or folder_like:
+        return output.check_folder(path, "-o")
+    return None
 
 
 def _cmd_compile(args) -> int:
     scenario = load_scenario(args.scenario)
-    program = _hardware_program(scenario, scenario_processor(scenario, args.processor), args.bind)
+    processor = scenario_processor(scenario, args.processor)
+    strategy = scenario.compile.strategy
+    folder = _compile_folder(args.output, strategy, args.bind)
+    destination = None
+    if folder is None and args.output is not None:
+        destination = output.check_file(args.output, "-o")
+    check_program_size(program_gates(scenario))
+    program = _hardware_program(scenario, processor, args.bind)
     texts = compile_texts(program, bind=args.bind, measure_each_cycle=args.measure_each_cycle)
     if program.per_row and args.bind is None:
-        if not args.output:
+        if folder is None:
             raise ScenarioError(
-                f"strategy {program.strategy!r} writes one program per sweep value: give "
-                "`-o DIR` for all of them, or `--bind VALUE` for one"
+                f"strategy {strategy!r} chose cycle-unitary, which writes one program per sweep "
+                "value: give `-o DIR` (a folder) for all of them, or `--bind VALUE` for one"
             )
-        folder = Path(args.output)
-        for value, text in texts:
-            path = folder / program_file_name(scenario.name, scenario.sweep.parameter, value)
-            report.write_text(path, text)
-        print(f"programs: {len(texts)} files in {folder}")
+        names = [program_file_name(scenario.name, scenario.sweep.parameter, v) for v, _ in texts]
+        targets = [output.check_file(folder / name, "-o") for name in names]
+        for target, (_, text) in zip(targets, texts, strict=True):
+            output.write_text(target, text)
+        print(f"programs: {len(texts)} files in {output.one_line(str(folder))}")
         return 0
+    if folder is not None:
+        raise ScenarioError(
+            f"strategy {strategy!r} chose {program.strategy}, which writes one program: give "
+            "`-o FILE` rather than a folder"
+        )
     text = texts[0][1]
-    if args.output:
-        report.write_text(Path(args.output), text)
-        print(f"program: {args.output}")
+    if destination is not None:
+        output.write_text(destination, text)
+        print(f"program: {output.one_line(str(destination))}")
     else:
         sys.stdout.write(text)
     return 0
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point; returns the exit code (0 ok, 2 bad input)."""
+    """Entry point; returns the exit code (0 ok, 2 bad input or refused run, 130 Ctrl-C)."""
     try:
         args = _parser().parse_args(argv)
         handler = {
@@ -371,9 +513,12 @@ def main(argv: list[str] | None = None) -> int:
             "compile": _cmd_compile,
         }[args.command]
         return handler(args)
-    except ScenarioError as exc:
-        print(f"dnpqc: error: {exc}", file=sys.stderr)
+    except (ScenarioError, RunError) as exc:
+        print(f"dnpqc: error: {output.one_line(str(exc))}", file=sys.stderr)
         return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("dnpqc: interrupted; nothing was written", file=sys.stderr)
+        return EXIT_INTERRUPTED
 
 
 if __name__ == "__main__":

@@ -33,6 +33,7 @@ from qiskit.transpiler import CouplingMap, InstructionProperties, QubitPropertie
 from qiskit_aer.library import SaveDensityMatrix, SaveProbabilities
 
 from .errors import ScenarioError
+from .limits import MAX_PROCESSOR_QUBITS
 
 #: Native gate sets, named for what they are: (two-qubit gate, single-qubit gates). A set emits
 #: only the gates its name lists (`cz+rz+sx` writes X as two SX; `cz+rz+sx+x` has its own X).
@@ -189,11 +190,16 @@ def _check_range(
 
 def coupling_graph(spec: str) -> tuple[int, tuple[tuple[int, int], ...]]:
     """Qubit count and edge list of a topology spec (see TOPOLOGY_FORMS)."""
-    match = re.fullmatch(r"(line|ring|star|full|heavy-hex):(\d+)|grid:(\d+)x(\d+)", spec.strip())
+    match = re.fullmatch(
+        r"(line|ring|star|full|heavy-hex):(\d{1,9})|grid:(\d{1,9})x(\d{1,9})",
+        spec.strip(" "),
+        flags=re.ASCII,
+    )
     if not match:
         raise ScenarioError(
-            f"`processor.topology` {spec!r} is not a topology; use one of {TOPOLOGY_FORMS}"
+            f"`processor.topology` {spec[:60]!r} is not a topology; use one of {TOPOLOGY_FORMS}"
         )
+    _check_size(spec, match)
     if match.group(3):
         rows, cols = int(match.group(3)), int(match.group(4))
         if rows < 1 or cols < 1:
@@ -223,6 +229,22 @@ def coupling_graph(spec: str) -> tuple[int, tuple[tuple[int, int], ...]]:
     else:
         edges = [(i, j) for i in range(n) for j in range(i + 1, n)]
     return n, tuple(sorted({tuple(sorted(e)) for e in edges}))
+
+
+def _check_size(spec: str, match: re.Match) -> None:
+    """Refuse a graph beyond MAX_PROCESSOR_QUBITS before building its edge list."""
+    if match.group(3):
+        qubits = int(match.group(3)) * int(match.group(4))
+    elif match.group(1) == "heavy-hex":
+        d = int(match.group(2))
+        qubits = (5 * d * d - 2 * d - 1) // 2  # qiskit CouplingMap.from_heavy_hex size
+    else:
+        qubits = int(match.group(2))
+    if qubits > MAX_PROCESSOR_QUBITS:
+        raise ScenarioError(
+            f"`processor.topology` {spec!r} has {qubits} qubits; at most "
+            f"{MAX_PROCESSOR_QUBITS} are allowed"
+        )
 
 
 #: Named presets: a topology and typical figures of a device class (typical values, not a device).

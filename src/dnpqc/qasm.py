@@ -19,9 +19,9 @@ from pathlib import Path
 from qiskit import ClassicalRegister, QuantumCircuit, qasm3, transpile
 
 from .mapping import MappedProgram
+from .output import one_line, write_text
 from .processor import build_target
 from .program import Program
-from .report import write_text
 
 READOUT = "nuclei"
 
@@ -106,9 +106,13 @@ def header_lines(
 
 
 def dumps(program: QuantumCircuit, header: list[str] | None = None) -> str:
-    """OpenQASM 3 text of `program`, with `header` as leading `//` comment lines."""
+    """OpenQASM 3 text of `program`, with `header` as leading `//` comment lines.
+
+    Each header line stays one comment line: a line break (or any control character) in it is
+    written escaped, so scenario text can never add a statement to the program.
+    """
     text = qasm3.dumps(program)
-    comments = "".join(f"// {line}\n" for line in (header or []))
+    comments = "".join(f"// {one_line(line)}\n" for line in (header or []))
     return comments + text
 
 

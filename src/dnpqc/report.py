@@ -1,21 +1,18 @@
-"""Reports: the JSON/CSV files, the plots and the terminal summary of a run. I/O lives here.
+"""Reports: the CSV text, the plots and the terminal summary of a run (files: `output`).
 
-Every file is written atomically (a temporary file in the same folder, then `os.replace`), so an
-interrupted run leaves either the old file or the new one, never half of one.
+User text (nucleus labels) is drawn as plain text, never as matplotlib math (`$...$`), and a
+label in a CSV cell never starts a spreadsheet formula.
 """
 
 from __future__ import annotations
 
 import csv
+import functools
 import io
-import json
-import os
-import tempfile
-from collections.abc import Callable
-from pathlib import Path
 
 import numpy as np
 
+from .output import spreadsheet_cell
 from .results import SweepResult
 
 _UNITS = {"_hz": ("kHz", 1e-3), "_s": ("µs", 1e6)}
@@ -34,28 +31,6 @@ def format_value(parameter: str, value: float) -> str:
     return f"{value * scale:.4g} {unit}".strip()
 
 
-def _write_atomic(path: Path, write: Callable[[io.IOBase], None], *, binary: bool = False) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
-            write(fh)
-        os.chmod(tmp, 0o644)  # mkstemp creates 0600; results are meant to be shared
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-
-
-def write_text(path: Path, text: str) -> None:
-    """Write `text` to `path` atomically."""
-    _write_atomic(Path(path), lambda fh: fh.write(text))
-
-
-def write_json(path: Path, data: object) -> None:
-    write_text(path, json.dumps(data, indent=2) + "\n")
-
-
 def sweep_csv(results: list[SweepResult]) -> str:
     """Long-format CSV: engine, swept value, cycle (1-based), nucleus, polarization."""
     buf = io.StringIO()
@@ -70,27 +45,11 @@ def sweep_csv(results: list[SweepResult]) -> str:
                             res.engine,
                             repr(float(value)),
                             c + 1,
-                            label,
+                            spreadsheet_cell(label),
                             f"{res.polarization[i, c, j]:.12g}",
                         ]
                     )
     return buf.getvalue()
-
-
-def _figure_writer(fig) -> Callable[[io.IOBase], None]:
-    def write(fh) -> None:
-        fig.savefig(fh, format="png", dpi=120)
-
-    return write
-
-
-def save_figure(path: Path, fig) -> None:
-    import matplotlib.pyplot as plt
-
-    try:
-        _write_atomic(Path(path), _figure_writer(fig), binary=True)
-    finally:
-        plt.close(fig)
 
 
 def _pyplot():
@@ -102,6 +61,20 @@ def _pyplot():
     return plt
 
 
+def _plain_text(draw):
+    """Draw with math text off, so a `$` in a label is a dollar sign, not TeX."""
+
+    @functools.wraps(draw)
+    def wrapper(*args, **kwargs):
+        import matplotlib
+
+        with matplotlib.rc_context({"text.parse_math": False, "text.usetex": False}):
+            return draw(*args, **kwargs)
+
+    return wrapper
+
+
+@_plain_text
 def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
     """P_j vs the swept value, one panel per nucleus, one line per cycle, a-priori lines dashed."""
     plt = _pyplot()
@@ -139,6 +112,7 @@ def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
 ENGINE_STYLES = {"exact": "-", "trotter": ":", "noisy": "--"}
 
 
+@_plain_text
 def buildup_figure(
     results: list[SweepResult], point: int, fits: dict[str, dict[str, dict[str, float]]]
 ):
@@ -180,6 +154,7 @@ def buildup_figure(
     return fig
 
 
+@_plain_text
 def comparison_figure(results: list[SweepResult], cycle: int = -1):
     """Final-cycle spectra of several engines: exact solid, trotter dotted, noisy dashed."""
     plt = _pyplot()
@@ -326,6 +301,7 @@ def strategy_table(rows: list[dict]) -> list[str]:
     return _table(header, cells)
 
 
+@_plain_text
 def budget_figure(rows: list[dict]):
     """Bars of two-qubit gates and SWAPs per cycle on each processor."""
     plt = _pyplot()

@@ -22,7 +22,10 @@ def memory_budget_bytes() -> int:
 
 
 def format_bytes(count: float) -> str:
+    """`count` bytes in binary units; beyond 1024 EiB as a power of two (exact for any int)."""
     units = ["B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"]
+    if count >= 1024**7:
+        return f"2^{int(count).bit_length() - 1} B"
     k = min(len(units) - 1, int(math.log(max(count, 1), 1024)))
     return f"{count / 1024**k:.3g} {units[k]}"
 

@@ -25,9 +25,33 @@ from .lattice import (
     random_cluster_nm,
     transverse_azimuth_deg,
 )
+from .limits import (
+    MAX_BLOCK_ELEMENTS,
+    MAX_BLOCKS,
+    MAX_CYCLES,
+    MAX_DESCRIPTION_CHARS,
+    MAX_FIELD_T,
+    MAX_FREQUENCY_HZ,
+    MAX_LABEL_CHARS,
+    MAX_LATTICE_RADIUS_NM,
+    MAX_NUCLEI,
+    MAX_POINTS,
+    MAX_POSITION_NM,
+    MAX_PROCESSOR_QUBITS,
+    MAX_PULSE_STEPS,
+    MAX_QUADRATURE_POINTS,
+    MAX_SAMPLES,
+    MAX_SEED,
+    MAX_STEPS,
+    MAX_TEXT_CHARS,
+    MAX_TIME_S,
+    MAX_TRAJECTORIES,
+    MAX_TYPICAL_STATES,
+)
 from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED, MappingSettings
 from .model import Coupling, Nucleus, SpinSystem
 from .noise import NoiseSettings
+from .output import has_control
 from .processor import (
     NATIVE_GATE_SETS,
     PRESETS,
@@ -144,31 +168,35 @@ class _Table:
         *,
         minimum: float | None = None,
         strict: bool = False,
+        maximum: float | None = None,
     ) -> float:
         value = self._get(name, default)
         if value is None:
             return value
-        return _check_number(value, self.key(name), minimum=minimum, strict=strict)
+        return _check_number(value, self.key(name), minimum=minimum, strict=strict, maximum=maximum)
 
-    def integer(self, name: str, default: Any = _MISSING, *, minimum: int = 1) -> int:
+    def integer(self, name: str, default: Any = _MISSING, *, minimum: int = 1, maximum: int) -> int:
         value = self._get(name, default)
         if value is None:
             return value
-        if isinstance(value, bool) or not isinstance(value, int):
-            raise ScenarioError(f"`{self.key(name)}` must be an integer, got {value!r}")
-        if value < minimum:
-            raise ScenarioError(f"`{self.key(name)}` must be >= {minimum}, got {value}")
-        return value
+        return _check_integer(value, self.key(name), minimum=minimum, maximum=maximum)
 
-    def string(self, name: str, default: Any = _MISSING, *, choices: tuple[str, ...] = ()) -> str:
+    def string(
+        self,
+        name: str,
+        default: Any = _MISSING,
+        *,
+        choices: tuple[str, ...] = (),
+        max_chars: int = MAX_TEXT_CHARS,
+    ) -> str:
         value = self._get(name, default)
         if not isinstance(value, str):
-            raise ScenarioError(f"`{self.key(name)}` must be a string, got {value!r}")
+            raise ScenarioError(f"`{self.key(name)}` must be a string, got {_brief(value)}")
         if choices and value not in choices:
             raise ScenarioError(
-                f"`{self.key(name)}` must be one of {', '.join(choices)}; got {value!r}"
+                f"`{self.key(name)}` must be one of {', '.join(choices)}; got {_brief(value)}"
             )
-        return value
+        return check_text(value, self.key(name), max_chars=max_chars)
 
     def boolean(self, name: str, default: Any = _MISSING) -> bool:
         value = self._get(name, default)
@@ -200,15 +228,60 @@ class _Table:
             )
 
 
-def _check_number(value: Any, key: str, *, minimum: float | None, strict: bool) -> float:
+def _brief(value: Any) -> str:
+    """`repr(value)`, cut to 60 characters for a message."""
+    try:
+        text = repr(value)
+    except ValueError:  # an integer beyond Python's decimal conversion limit (e.g. from hex)
+        return f"an integer of {value.bit_length()} bits"
+    return text if len(text) <= 60 else f"{text[:57]}..."
+
+
+def check_text(value: str, key: str, *, max_chars: int = MAX_TEXT_CHARS) -> str:
+    """Refuse text that could break a line of output: control characters (line breaks, ESC,
+    bidi overrides) and text longer than `max_chars`."""
+    if has_control(value):
+        raise ScenarioError(
+            f"`{key}` must not contain line breaks or control characters, got {_brief(value)}"
+        )
+    if len(value) > max_chars:
+        raise ScenarioError(f"`{key}` must be at most {max_chars} characters, got {len(value)}")
+    return value
+
+
+def _check_integer(value: Any, key: str, *, minimum: int, maximum: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ScenarioError(f"`{key}` must be an integer, got {_brief(value)}")
+    if value < minimum:
+        raise ScenarioError(f"`{key}` must be >= {minimum}, got {_brief(value)}")
+    if value > maximum:
+        raise ScenarioError(f"`{key}` must be <= {maximum}, got {_brief(value)}")
+    return value
+
+
+def _check_number(
+    value: Any,
+    key: str,
+    *,
+    minimum: float | None,
+    strict: bool,
+    maximum: float | None = None,
+) -> float:
     if isinstance(value, bool) or not isinstance(value, int | float):
-        raise ScenarioError(f"`{key}` must be a number, got {value!r}")
-    value = float(value)
+        raise ScenarioError(f"`{key}` must be a number, got {_brief(value)}")
+    try:
+        value = float(value)
+    except OverflowError:
+        raise ScenarioError(
+            f"`{key}` must be finite, got an integer of {value.bit_length()} bits"
+        ) from None
     if not math.isfinite(value):
         raise ScenarioError(f"`{key}` must be finite, got {value}")
     if minimum is not None and (value <= minimum if strict else value < minimum):
         relation = ">" if strict else ">="
         raise ScenarioError(f"`{key}` must be {relation} {minimum:g}, got {value:g}")
+    if maximum is not None and abs(value) > maximum:
+        raise ScenarioError(f"`{key}` must be at most {maximum:g} in magnitude, got {value:g}")
     return value
 
 
@@ -235,6 +308,11 @@ def load_scenario(path: str | Path) -> Scenario:
         text = path.read_text(encoding="utf-8")
     except OSError as exc:
         raise ScenarioError(f"cannot read scenario file {str(path)!r}: {exc.strerror}") from None
+    except UnicodeDecodeError as exc:
+        raise ScenarioError(
+            f"scenario file {str(path)!r} is not UTF-8 text (byte {exc.start}); a scenario is "
+            "a TOML text file"
+        ) from None
     return parse_scenario(text, default_name=path.stem)
 
 
@@ -250,6 +328,12 @@ def parse_scenario(text: str, *, default_name: str = "scenario") -> Scenario:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ScenarioError(f"scenario is not valid TOML: {exc}") from None
+    except ValueError as exc:  # e.g. an integer beyond Python's 4300-digit conversion limit
+        raise ScenarioError(f"scenario is not valid TOML: {exc}") from None
+    except RecursionError:
+        raise ScenarioError(
+            "scenario is not valid TOML: arrays or tables nested too deep"
+        ) from None
     return scenario_from_dict(data, default_name=default_name, digest=_digest(text))
 
 
@@ -264,14 +348,16 @@ def scenario_from_dict(
     top = _Table(data, "")
     top.finish(_TOP_KEYS)
     name = top.string("name", default_name)
-    top.string("description", "")
+    if not name.strip():
+        raise ScenarioError("`name` must not be empty")
+    top.string("description", "", max_chars=MAX_DESCRIPTION_CHARS)
     system = _read_spins(_required_table(top, "spins"))
     drive = _required_table(top, "drive")
     sweep_table = top.table("sweep")
     swept = _swept_parameter(sweep_table, drive)
     cycle = top.table("cycle") or _Table({}, "cycle")
     protocol = _read_protocol(drive, cycle, swept)
-    count = cycle.integer("count", 1)
+    count = cycle.integer("count", 1, maximum=MAX_CYCLES)
     cycle.finish()
     trotter = _read_trotter(top.table("trotter") or _Table({}, "trotter"))
     sweep = _read_sweep(sweep_table, protocol, swept or _DEFAULT_SWEPT[protocol.kind])
@@ -286,8 +372,8 @@ def scenario_from_dict(
     noise = _read_noise(top.table("noise"))
     typical_table = top.table("typical") or _Table({}, "typical")
     typical = TypicalSettings(
-        states=typical_table.integer("states", 32, minimum=2),
-        seed=typical_table.integer("seed", 0, minimum=0),
+        states=typical_table.integer("states", 32, minimum=2, maximum=MAX_TYPICAL_STATES),
+        seed=typical_table.integer("seed", 0, minimum=0, maximum=MAX_SEED),
     )
     typical_table.finish()
     compile_settings = _read_compile(top.table("compile") or _Table({}, "compile"))
@@ -327,12 +413,12 @@ def _read_imperfections(t: _Table | None) -> Imperfections:
     if t is None:
         return Imperfections()
     out = Imperfections(
-        detuning_sigma_hz=t.number("detuning_sigma_hz", 0.0, minimum=0.0),
+        detuning_sigma_hz=t.number("detuning_sigma_hz", 0.0, minimum=0.0, maximum=MAX_FREQUENCY_HZ),
         drive_sigma_rel=t.number("drive_sigma_rel", 0.0, minimum=0.0),
         method=t.string("method", "quadrature", choices=("quadrature", "sampling")),
-        points=t.integer("points", 3, minimum=1),
-        samples=t.integer("samples", 16, minimum=2),
-        seed=t.integer("seed", 0, minimum=0),
+        points=t.integer("points", 3, minimum=1, maximum=MAX_QUADRATURE_POINTS),
+        samples=t.integer("samples", 16, minimum=2, maximum=MAX_SAMPLES),
+        seed=t.integer("seed", 0, minimum=0, maximum=MAX_SEED),
     )
     if out.drive_sigma_rel >= 0.5:
         raise ScenarioError(
@@ -348,10 +434,10 @@ def _read_noise(t: _Table | None) -> NoiseSettings:
     if t is None:
         return NoiseSettings()
     out = NoiseSettings(
-        scale=t.number("scale", 1.0, minimum=0.0),
+        scale=t.number("scale", 1.0, minimum=0.0, maximum=1e6),
         method=t.string("method", "auto", choices=("auto", "density_matrix", "trajectories")),
-        trajectories=t.integer("trajectories", 256, minimum=2),
-        seed=t.integer("seed", 0, minimum=0),
+        trajectories=t.integer("trajectories", 256, minimum=2, maximum=MAX_TRAJECTORIES),
+        seed=t.integer("seed", 0, minimum=0, maximum=MAX_SEED),
         idle=t.boolean("idle", True),
     )
     t.finish()
@@ -366,14 +452,24 @@ def _required_table(parent: _Table, name: str) -> _Table:
 
 
 def _read_spins(spins: _Table) -> SpinSystem:
-    field_t = spins.number("field_t", minimum=0.0, strict=True)
-    nuclei = [_read_nucleus(t) for t in spins.tables("nuclei")]
+    field_t = spins.number("field_t", minimum=0.0, strict=True, maximum=MAX_FIELD_T)
+    tables = spins.tables("nuclei")
+    if len(tables) > MAX_NUCLEI:
+        raise ScenarioError(
+            f"`spins.nuclei` lists {len(tables)} nuclei; at most {MAX_NUCLEI} are allowed"
+        )
+    nuclei = [_read_nucleus(t) for t in tables]
     lattice = spins.table("lattice")
     if lattice is not None:
         nuclei += _read_lattice(lattice, taken={n.label for n in nuclei})
     if not nuclei:
         raise ScenarioError(
             "`spins` needs at least one nucleus: `[[spins.nuclei]]` or `[spins.lattice]`"
+        )
+    if len(nuclei) > MAX_NUCLEI:
+        raise ScenarioError(
+            f"`spins` has {len(nuclei)} nuclei (with the lattice's); at most {MAX_NUCLEI} are "
+            "allowed: set `spins.lattice.max_nuclei` or a smaller radius"
         )
     labels = [n.label for n in nuclei]
     duplicates = sorted({x for x in labels if labels.count(x) > 1})
@@ -382,6 +478,12 @@ def _read_spins(spins: _Table) -> SpinSystem:
     dipolar = spins.boolean("dipolar", True)
     couplings = _position_couplings(nuclei) if dipolar else {}
     couplings.update(_read_couplings(spins.tables("couplings"), labels))
+    for (j, k), d_hz in couplings.items():
+        if not abs(d_hz) <= MAX_FREQUENCY_HZ:
+            raise ScenarioError(
+                f"the coupling of {labels[j]!r} and {labels[k]!r} is {d_hz:g} Hz, beyond "
+                f"{MAX_FREQUENCY_HZ:g} Hz: the two positions are too close"
+            )
     spins.finish()
     return SpinSystem(
         field_t=field_t,
@@ -391,7 +493,7 @@ def _read_spins(spins: _Table) -> SpinSystem:
 
 
 def _read_nucleus(t: _Table) -> Nucleus:
-    label = t.string("label")
+    label = t.string("label", max_chars=MAX_LABEL_CHARS)
     if not label.strip():
         raise ScenarioError(f"`{t.key('label')}` must not be empty")
     has_hf = t.has("a_par_hz") or t.has("a_perp_hz")
@@ -408,12 +510,18 @@ def _read_nucleus(t: _Table) -> Nucleus:
                 f"`{t.key('azimuth_deg')}` ({label!r}) goes with `a_par_hz`+`a_perp_hz`; "
                 "a nucleus at `position_nm` takes the azimuth of its position"
             )
-        nucleus = _nucleus_at(label, _read_vector(t.raw("position_nm"), t.key("position_nm")))
+        position = _read_vector(t.raw("position_nm"), t.key("position_nm"))
+        nucleus = _nucleus_at(label, position)
+        if max(abs(nucleus.a_par_hz), abs(nucleus.a_perp_hz)) > MAX_FREQUENCY_HZ:
+            raise ScenarioError(
+                f"`{t.key('position_nm')}` {list(position)} lies so close to the NV that the "
+                f"hyperfine coupling exceeds {MAX_FREQUENCY_HZ:g} Hz"
+            )
     else:
         nucleus = Nucleus(
             label,
-            t.number("a_par_hz"),
-            t.number("a_perp_hz"),
+            t.number("a_par_hz", maximum=MAX_FREQUENCY_HZ),
+            t.number("a_perp_hz", maximum=MAX_FREQUENCY_HZ),
             azimuth_deg=t.number("azimuth_deg", 0.0),
         )
     t.finish()
@@ -431,7 +539,9 @@ def _read_vector(value: Any, key: str) -> tuple[float, float, float]:
         raise ScenarioError(
             f"`{key}` must be a list of three numbers [x, y, z] in nm, got {value!r}"
         )
-    vec = tuple(_check_number(v, key, minimum=None, strict=False) for v in value)
+    vec = tuple(
+        _check_number(v, key, minimum=None, strict=False, maximum=MAX_POSITION_NM) for v in value
+    )
     if not any(vec):
         raise ScenarioError(f"`{key}` must not be the NV site [0, 0, 0]")
     return vec
@@ -439,13 +549,13 @@ def _read_vector(value: Any, key: str) -> tuple[float, float, float]:
 
 def _read_lattice(t: _Table, taken: set[str]) -> list[Nucleus]:
     positions = random_cluster_nm(
-        radius_nm=t.number("radius_nm", minimum=0.0, strict=True),
-        seed=t.integer("seed", minimum=0),
+        radius_nm=t.number("radius_nm", minimum=0.0, strict=True, maximum=MAX_LATTICE_RADIUS_NM),
+        seed=t.integer("seed", minimum=0, maximum=MAX_SEED),
         abundance=t.number("abundance", 0.0107, minimum=0.0, strict=True),
         min_distance_nm=t.number("min_distance_nm", 0.0, minimum=0.0),
-        max_nuclei=t.integer("max_nuclei", None, minimum=1),
+        max_nuclei=t.integer("max_nuclei", None, minimum=1, maximum=MAX_NUCLEI),
     )
-    prefix = t.string("label_prefix", "L")
+    prefix = t.string("label_prefix", "L", max_chars=MAX_LABEL_CHARS - 6)
     t.finish()
     if not positions:
         raise ScenarioError(
@@ -485,13 +595,20 @@ def _read_couplings(tables: list[_Table], labels: list[str]) -> dict[tuple[int, 
         if pair[0] == pair[1]:
             raise ScenarioError(f"`{t.key('pair')}` must name two different nuclei, got {pair!r}")
         key = tuple(sorted((labels.index(pair[0]), labels.index(pair[1]))))
-        d_hz = t.number("d_hz")
+        d_hz = t.number("d_hz", maximum=MAX_FREQUENCY_HZ)
         t.finish()
         couplings[key] = d_hz
     return couplings
 
 
 _SWEEPABLE = {"spin-lock": SpinLock.sweepable, "pulsed": PulsedBlock.sweepable}
+#: Largest magnitude of each drive quantity (also of its sweep start and stop).
+_MAGNITUDES = {
+    "rabi_hz": MAX_FREQUENCY_HZ,
+    "detuning_hz": MAX_FREQUENCY_HZ,
+    "interaction_time_s": MAX_TIME_S,
+    "tau_s": MAX_TIME_S,
+}
 _DEFAULT_SWEPT = {"spin-lock": "rabi_hz", "pulsed": "tau_s"}
 
 
@@ -511,7 +628,7 @@ def _read_protocol(drive: _Table, cycle: _Table, swept: str | None) -> Protocol:
         if name == swept and not drive.has(name):
             drive.used.add(name)
             return math.nan  # filled in per sweep point
-        return drive.number(name, default, **limits)
+        return drive.number(name, default, maximum=_MAGNITUDES[name], **limits)
 
     detuning = drive_value("detuning_hz", 0.0)
     if kind == "spin-lock":
@@ -520,7 +637,9 @@ def _read_protocol(drive: _Table, cycle: _Table, swept: str | None) -> Protocol:
             cycle.used.add("interaction_time_s")
             time_s = math.nan
         else:
-            time_s = cycle.number("interaction_time_s", minimum=0.0, strict=True)
+            time_s = cycle.number(
+                "interaction_time_s", minimum=0.0, strict=True, maximum=MAX_TIME_S
+            )
         drive.finish(("protocol", "rabi_hz", "detuning_hz"))
         cycle.finish(("count", "interaction_time_s"))
         return SpinLock(rabi_hz=rabi, detuning_hz=detuning, interaction_time_s=time_s)
@@ -532,21 +651,27 @@ def _read_protocol(drive: _Table, cycle: _Table, swept: str | None) -> Protocol:
     else:
         elements = NAMED_BLOCKS[sequence]
     tau = drive_value("tau_s", minimum=0.0, strict=True)
-    pulse_rabi = drive.number("pulse_rabi_hz", None, minimum=0.0, strict=True)
-    blocks = cycle.integer("blocks", minimum=1)
+    pulse_rabi = drive.number(
+        "pulse_rabi_hz", None, minimum=0.0, strict=True, maximum=MAX_FREQUENCY_HZ
+    )
+    blocks = cycle.integer("blocks", minimum=1, maximum=MAX_BLOCKS)
     drive.finish(("protocol", "sequence", "block", "tau_s", "pulse_rabi_hz", "detuning_hz"))
     cycle.finish(("count", "blocks"))
     return PulsedBlock(sequence, elements, tau, blocks, detuning, pulse_rabi)
 
 
 def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
+    if len(tables) > MAX_BLOCK_ELEMENTS:
+        raise ScenarioError(
+            f"`drive.block` has {len(tables)} elements; at most {MAX_BLOCK_ELEMENTS} are allowed"
+        )
     elements: list[Pulse | BlockWait] = []
     for t in tables:
         if t.has("wait"):
-            elements.append(BlockWait(t.number("wait", minimum=0.0, strict=True)))
+            elements.append(BlockWait(t.number("wait", minimum=0.0, strict=True, maximum=1e6)))
             t.finish(("wait",))
             continue
-        angle = math.radians(t.number("angle_deg", minimum=0.0, strict=True))
+        angle = math.radians(t.number("angle_deg", minimum=0.0, strict=True, maximum=1e6))
         if t.has("axis") == t.has("phase_deg"):
             raise ScenarioError(
                 f"`{t.path}` needs exactly one of `axis` (x, y, -x, -y) and `phase_deg`, "
@@ -555,7 +680,7 @@ def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
         if t.has("axis"):
             phase = AXIS_PHASES_RAD[t.string("axis", choices=tuple(AXIS_PHASES_RAD))]
         else:
-            phase = math.radians(t.number("phase_deg"))
+            phase = math.radians(t.number("phase_deg", maximum=1e6))
         t.finish(("angle_deg", "axis", "phase_deg"))
         elements.append(Pulse(angle, phase))
     if not any(isinstance(e, BlockWait) for e in elements) or not any(
@@ -568,10 +693,10 @@ def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
 def _read_trotter(t: _Table) -> TrotterSettings:
     defaults = TrotterSettings()
     settings = TrotterSettings(
-        steps=t.integer("steps", defaults.steps),
-        order=t.integer("order", defaults.order),
-        pulse_steps=t.integer("pulse_steps", defaults.pulse_steps),
-        weak_every=t.integer("weak_every", defaults.weak_every, minimum=1),
+        steps=t.integer("steps", defaults.steps, maximum=MAX_STEPS),
+        order=t.integer("order", defaults.order, maximum=MAX_STEPS),
+        pulse_steps=t.integer("pulse_steps", defaults.pulse_steps, maximum=MAX_PULSE_STEPS),
+        weak_every=t.integer("weak_every", defaults.weak_every, minimum=1, maximum=MAX_STEPS),
     )
     if settings.order not in (1, 2):
         raise ScenarioError(f"`trotter.order` must be 1 or 2, got {settings.order}")
@@ -600,6 +725,12 @@ def _read_processor(t: _Table | None) -> tuple[Processor | None, MappingSettings
         settings["preset"] = t.string("preset", choices=tuple(PRESETS))
     if t.has("topology") and t.has("edges"):
         raise ScenarioError("`processor` takes `topology` or `edges`, not both")
+    if t.has("preset") and (t.has("topology") or t.has("edges")):
+        graph = "topology" if t.has("topology") else "edges"
+        raise ScenarioError(
+            f"`processor` takes `preset` or `{graph}`, not both: a preset has its own graph "
+            "(to use its figures on another graph, give `--processor TOPOLOGY`)"
+        )
     if t.has("topology"):
         settings["topology"] = t.string("topology")
     if t.has("edges"):
@@ -608,24 +739,35 @@ def _read_processor(t: _Table | None) -> tuple[Processor | None, MappingSettings
         settings["native_gates"] = t.string("native_gates", choices=tuple(NATIVE_GATE_SETS))
     for key in _PROCESSOR_NUMBERS:
         if t.has(key):
-            settings[key] = t.number(key, minimum=0.0)
+            settings[key] = t.number(key, minimum=0.0, maximum=MAX_TIME_S)
     for key in ("t1_s", "t2_s"):
         if t.has(key):
             value = t.raw(key)
             items = value if isinstance(value, list) else [value]
             t.used.add(key)
-            settings[key] = [_check_number(v, t.key(key), minimum=0.0, strict=True) for v in items]
+            if len(items) > MAX_PROCESSOR_QUBITS:
+                raise ScenarioError(
+                    f"`{t.key(key)}` lists {len(items)} values; at most {MAX_PROCESSOR_QUBITS}"
+                )
+            settings[key] = [
+                _check_number(v, t.key(key), minimum=0.0, strict=True, maximum=1e6) for v in items
+            ]
             if not isinstance(value, list):
                 settings[key] = settings[key][0]
     compare = t.raw("compare") if t.has("compare") else []
-    if not (isinstance(compare, list) and all(isinstance(c, str) for c in compare)):
+    if not (
+        isinstance(compare, list)
+        and len(compare) <= 20
+        and all(isinstance(c, str) for c in compare)
+    ):
         raise ScenarioError(
-            f"`processor.compare` must be a list of topology strings, got {compare!r}"
+            f"`processor.compare` must be a list of at most 20 topology strings, got "
+            f"{_brief(compare)}"
         )
-    level = t.integer("optimization_level", DEFAULT_OPTIMIZATION_LEVEL, minimum=0)
+    level = t.integer("optimization_level", DEFAULT_OPTIMIZATION_LEVEL, minimum=0, maximum=MAX_SEED)
     if level > 3:
         raise ScenarioError(f"`processor.optimization_level` must be 0..3, got {level}")
-    seed = t.integer("seed", DEFAULT_SEED, minimum=0)
+    seed = t.integer("seed", DEFAULT_SEED, minimum=0, maximum=MAX_SEED)
     t.finish()
     processor = make_processor(settings)
     if compare:
@@ -648,7 +790,13 @@ def _read_edges(value: Any, key: str) -> list[tuple[int, int]]:
     )
     if not ok:
         raise ScenarioError(
-            f"`{key}` must be a list of qubit pairs [[0, 1], [1, 2], ...], got {value!r}"
+            f"`{key}` must be a list of qubit pairs [[0, 1], [1, 2], ...], got {_brief(value)}"
+        )
+    largest = max(max(e) for e in value)
+    if largest >= MAX_PROCESSOR_QUBITS or len(value) > MAX_PROCESSOR_QUBITS**2:
+        raise ScenarioError(
+            f"`{key}` names qubit {_brief(largest)}; a processor has at most "
+            f"{MAX_PROCESSOR_QUBITS} qubits (0..{MAX_PROCESSOR_QUBITS - 1})"
         )
     return [tuple(e) for e in value]
 
@@ -656,8 +804,9 @@ def _read_edges(value: Any, key: str) -> list[tuple[int, int]]:
 def _read_sweep(t: _Table | None, protocol: Protocol, swept: str) -> Sweep:
     if t is None:
         return Sweep(swept, (float(getattr(protocol, swept)),))
-    start, stop = t.number("start"), t.number("stop")
-    points = t.integer("points", minimum=1)
+    start = t.number("start", maximum=_MAGNITUDES[swept])
+    stop = t.number("stop", maximum=_MAGNITUDES[swept])
+    points = t.integer("points", minimum=1, maximum=MAX_POINTS)
     t.finish()
     if points == 1 and start != stop:
         raise ScenarioError(
@@ -668,6 +817,12 @@ def _read_sweep(t: _Table | None, protocol: Protocol, swept: str) -> Sweep:
 
 def check_point(scenario: Scenario, value: float, key: str = "--bind") -> float:
     """Validate one value of the swept quantity (e.g. for `--bind`); returns it."""
+    limit = _MAGNITUDES[scenario.sweep.parameter]
+    if not abs(value) <= limit:  # also refuses NaN
+        raise ScenarioError(
+            f"`{key}` must be a finite value of `{scenario.sweep.parameter}` of magnitude at most "
+            f"{limit:g}, got {value:g}"
+        )
     try:
         _check_sweep_values(scenario.protocol, Sweep(scenario.sweep.parameter, (value,)))
     except ScenarioError as exc:
@@ -691,3 +846,33 @@ def _check_sweep_values(protocol: Protocol, sweep: Sweep) -> None:
                 f"`drive.pulse_rabi_hz` = {protocol.pulse_rabi_hz:g}: a free window would last "
                 f"{window:g} s; raise tau_s or pulse_rabi_hz"
             )
+
+
+def steps_per_cycle(scenario: Scenario) -> int:
+    """Trotter steps of one cycle: the block's steps times its repeats (a pulse counts one)."""
+    schedule = scenario.schedule()
+
+    def count(segments) -> int:
+        return sum(getattr(seg, "steps", 1) for seg in segments)
+
+    return count(schedule.prepare) + schedule.repeats * count(schedule.block)
+
+
+def gates_per_step(system: SpinSystem) -> int:
+    """About the rotations of one Trotter step: drive and detuning, 3 per nucleus, 4 per pair."""
+    return 3 + 3 * system.num_nuclei + 4 * len(system.couplings)
+
+
+def program_gates(scenario: Scenario) -> int:
+    """Gates of the compiled program, about: cycles × steps per cycle × gates per step."""
+    return scenario.cycles * steps_per_cycle(scenario) * gates_per_step(scenario.system)
+
+
+def sweep_work(scenario: Scenario, engine: str) -> int:
+    """Work of one engine over the sweep, in state-element updates: points × imperfection
+    nodes × program gates × the state's size (4^q for a density matrix, states × 2^q for the
+    typical engine's random states)."""
+    q = scenario.system.num_qubits
+    state = scenario.typical.states * 2**q if engine == "typical" else 4**q
+    nodes = len(scenario.imperfections.nodes())
+    return len(scenario.sweep.values) * nodes * program_gates(scenario) * state

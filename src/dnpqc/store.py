@@ -8,12 +8,14 @@ Polarizations are stored as float64 bytes, one row per (engine, point index).
 
 from __future__ import annotations
 
+import fcntl
+import os
 import sqlite3
 from pathlib import Path
 
 import numpy as np
 
-from .errors import ScenarioError
+from .errors import RunError, ScenarioError
 
 STORE_NAME = "points.sqlite"
 
@@ -32,43 +34,95 @@ CREATE TABLE IF NOT EXISTS log (engine TEXT NOT NULL, idx INTEGER NOT NULL);
 
 
 class ResultsStore:
-    """Sweep points of one scenario run, committed one by one."""
+    """Sweep points of one scenario run, committed one by one.
+
+    A store that does not exist yet (or one to be replaced, `replace=True`) is created only at
+    the first commit, so a run refused before its first point leaves the folder as it was. An
+    existing store is opened at once and checked against this scenario. While open, the file is
+    locked (`flock`): a second writer is refused.
+    """
 
     def __init__(
-        self, path: Path, *, digest: str, engines: tuple[str, ...], shape: tuple[int, int]
+        self,
+        path: Path,
+        *,
+        digest: str,
+        engines: tuple[str, ...],
+        shape: tuple[int, int],
+        replace: bool = False,
     ):
         self.path = Path(path)
         self.shape = shape  # (cycles, nuclei)
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        self.db = sqlite3.connect(self.path)
-        self.db.execute("PRAGMA journal_mode=WAL")
-        self.db.executescript(_SCHEMA)
-        self._claim(digest, engines)
+        self.digest, self.engines, self.replace = digest, engines, replace
+        self.db: sqlite3.Connection | None = None
+        self._lock_fd: int | None = None
+        self._claimed = False
+        if self.path.exists() and not replace:
+            self._connect()
+            self._check_claim()
 
-    def _claim(self, digest: str, engines: tuple[str, ...]) -> None:
-        meta = dict(self.db.execute("SELECT key, value FROM meta"))
-        wanted = {"digest": digest, "shape": f"{self.shape[0]}x{self.shape[1]}"}
-        if meta:
-            for key, value in wanted.items():
-                if meta.get(key) != value:
-                    raise ScenarioError(
-                        f"cannot resume into {str(self.path)!r}: it holds a run of another "
-                        f"scenario ({key} {meta.get(key)!r}, this one {value!r}); use another "
-                        "--out or --fresh"
-                    )
+    @property
+    def is_open(self) -> bool:
+        return self.db is not None
+
+    def _connect(self) -> None:
+        self._lock_fd = _lock(self.path)
+        try:
+            self.db = sqlite3.connect(self.path)
+            self.db.execute("PRAGMA journal_mode=WAL")
+        except sqlite3.DatabaseError as exc:
+            self.close()
+            raise RunError(f"{str(self.path)!r} is not a results store ({exc})") from None
+
+    def _create(self) -> None:
+        """The first commit: discard a store being replaced, then create this one."""
+        if self.replace:
+            discard_store(self.path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        self._connect()
+        self.db.executescript(_SCHEMA)
+
+    def _wanted(self) -> dict[str, str]:
+        return {"digest": self.digest, "shape": f"{self.shape[0]}x{self.shape[1]}"}
+
+    def _check_claim(self) -> None:
+        try:
+            meta = dict(self.db.execute("SELECT key, value FROM meta"))
+        except sqlite3.DatabaseError as exc:
+            self.close()
+            raise RunError(
+                f"{str(self.path)!r} is not a results store ({exc}); use another --out or --fresh"
+            ) from None
+        for key, value in self._wanted().items():
+            if meta.get(key) != value:
+                self.close()
+                raise ScenarioError(
+                    f"cannot resume into {str(self.path)!r}: it holds a run of another "
+                    f"scenario ({key} {meta.get(key)!r}, this one {value!r}); use another "
+                    "--out or --fresh"
+                )
+
+    def _claim(self) -> None:
         with self.db:
-            for key, value in wanted.items():
+            for key, value in self._wanted().items():
                 self.db.execute("INSERT OR REPLACE INTO meta VALUES (?, ?)", (key, value))
             self.db.execute(
-                "INSERT OR REPLACE INTO meta VALUES ('engines', ?)", (",".join(engines),)
+                "INSERT OR REPLACE INTO meta VALUES ('engines', ?)", (",".join(self.engines),)
             )
+        self._claimed = True
 
     def done(self, engine: str) -> set[int]:
+        if self.db is None:
+            return set()
         rows = self.db.execute("SELECT idx FROM points WHERE engine = ?", (engine,))
         return {int(r[0]) for r in rows}
 
     def put(self, engine: str, indices, values, polarization, stderr=None) -> None:
         """Commit the points of one finished task in one transaction."""
+        if self.db is None:
+            self._create()
+        if not self._claimed:
+            self._claim()
         with self.db:
             for k, idx in enumerate(indices):
                 err = None if stderr is None else np.asarray(stderr[k], dtype=float).tobytes()
@@ -89,6 +143,8 @@ class ResultsStore:
         pol = np.full((count, *self.shape), np.nan)
         err = np.full((count, *self.shape), np.nan)
         has_err = False
+        if self.db is None:
+            return pol, None
         rows = self.db.execute(
             "SELECT idx, polarization, stderr FROM points WHERE engine = ?", (engine,)
         )
@@ -101,10 +157,55 @@ class ResultsStore:
 
     def computations(self) -> list[tuple[str, int]]:
         """Every (engine, point) ever committed, in order: a point computed twice shows twice."""
+        if self.db is None:
+            return []
         return [(e, int(i)) for e, i in self.db.execute("SELECT engine, idx FROM log")]
 
     def close(self) -> None:
-        self.db.close()
+        if self.db is not None:
+            self.db.close()
+            self.db = None
+        if self._lock_fd is not None:
+            os.close(self._lock_fd)
+            self._lock_fd = None
+
+
+def _lock(path: Path) -> int:
+    """An exclusive `flock` on the store file (created if absent); RunError if held elsewhere."""
+    fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        os.close(fd)
+        raise RunError(
+            f"another dnpqc run is writing to {str(path)!r}; wait for it or use another --out"
+        ) from None
+    return fd
+
+
+def check_unlocked(path: Path) -> None:
+    """Refuse at once when a live run holds the store at `path` (checked before any work)."""
+    if not path.is_file():
+        return
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        raise RunError(
+            f"another dnpqc run is writing to {str(path)!r}; wait for it or use another --out"
+        ) from None
+    finally:
+        os.close(fd)
+
+
+def discard_store(path: Path) -> None:
+    """Delete the store at `path` and its WAL files (refused while another run holds it)."""
+    check_unlocked(path)
+    for suffix in ("", "-wal", "-shm"):
+        Path(f"{path}{suffix}").unlink(missing_ok=True)
 
 
 def unfinished_run(path: Path, digest: str, points: int) -> bool:

@@ -11,13 +11,18 @@ from __future__ import annotations
 
 import math
 import multiprocessing
+import os
+import re
+import signal
+import threading
+import time
 from collections.abc import Callable
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
 import numpy as np
 
 from .engines import EngineOptions, simulate_program
-from .errors import ScenarioError
+from .errors import RunError, ScenarioError
 from .program import Program, Workload
 from .results import SweepResult
 from .store import ResultsStore
@@ -50,8 +55,23 @@ def split_tasks(missing: list[int], engine: str, workers: int) -> list[list[int]
     return [missing[i : i + size] for i in range(0, len(missing), size)]
 
 
+#: Seconds to wait for a Dask scheduler to answer before giving up.
+CONNECT_TIMEOUT_S = 10
+
+
+def check_scheduler_address(address: str) -> str:
+    """Refuse a `--scheduler` that is not `tcp://HOST:PORT` (or `tls://`), before any work."""
+    match = re.fullmatch(r"(tcp|tls)://([A-Za-z0-9.\-]+|\[[0-9A-Fa-f:.]+\]):(\d{1,5})", address)
+    if not match or not 0 < int(match.group(3)) < 65536:
+        raise ScenarioError(
+            f"`--scheduler` must be an address like tcp://10.0.0.5:8786, got {address[:80]!r}"
+        )
+    return address
+
+
 def _executor(workers: int, scheduler: str | None):
-    if scheduler:
+    if scheduler is not None:
+        check_scheduler_address(scheduler)
         try:
             from distributed import Client
         except ImportError:
@@ -59,10 +79,31 @@ def _executor(workers: int, scheduler: str | None):
                 "`--scheduler` needs the Dask distributed package: pip install 'dnpqc[cluster]'"
             ) from None
         try:
-            return _DaskExecutor(Client(scheduler, timeout=10))
-        except OSError as exc:
-            raise ScenarioError(f"`--scheduler` {scheduler!r}: cannot connect ({exc})") from None
-    return ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+            return _DaskExecutor(Client(scheduler, timeout=CONNECT_TIMEOUT_S))
+        except (OSError, TimeoutError, MemoryError, ValueError) as exc:
+            raise RunError(
+                f"`--scheduler` {scheduler!r}: no Dask scheduler answered there "
+                f"({type(exc).__name__}: {str(exc)[:120]})"
+            ) from None
+    return ProcessPoolExecutor(
+        workers,
+        mp_context=multiprocessing.get_context("spawn"),
+        initializer=_worker_setup,
+        initargs=(os.getpid(),),
+    )
+
+
+def _worker_setup(parent_pid: int) -> None:
+    """In each pool worker: leave Ctrl-C to the parent (which stops the pool cleanly), and exit
+    when the parent is gone (a SIGKILLed run must not leave workers behind)."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    threading.Thread(target=_exit_with_parent, args=(parent_pid,), daemon=True).start()
+
+
+def _exit_with_parent(parent_pid: int, period_s: float = 0.5) -> None:
+    while os.getppid() == parent_pid:
+        time.sleep(period_s)
+    os._exit(1)
 
 
 class _DaskExecutor:
@@ -167,7 +208,8 @@ def _keep(memory, engine, indices, pol, err) -> None:
 
 def _result(work: Workload, engine, store, memory) -> SweepResult:
     count = len(work.values)
-    pol, err = store.load(engine, count) if store is not None else memory[engine]
+    stored = store is not None and store.is_open
+    pol, err = store.load(engine, count) if stored else memory[engine]
     return SweepResult(
         engine, work.parameter, np.asarray(work.values), work.system.labels, pol, err
     )

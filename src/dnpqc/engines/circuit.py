@@ -118,8 +118,9 @@ def simulate_trotter(
         "trotter",
         density_matrix_bytes(q),
         f"a density matrix of {q} qubits",
-        "use the typical engine for the physics, or the noisy engine with "
-        '[noise] method = "trajectories"',
+        "use the typical engine (`--engines typical` for run, `--engine typical` for "
+        "sweep) for the physics, or the noisy "
+        'engine with [noise] method = "trajectories"',
     )
     return simulate_circuits(
         program, program.circuits, "trotter", density_matrix_simulator(), on_point=on_point

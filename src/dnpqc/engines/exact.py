@@ -23,7 +23,7 @@ def simulate_exact(work: Workload, *, on_point: Callable[[], None] | None = None
         "exact",
         4 * 16 * 4**system.num_qubits,
         f"NV + {system.num_nuclei} nuclei",
-        "use the typical engine (--engine typical)",
+        "use the typical engine (`--engines typical` for run, `--engine typical` for sweep)",
     )
     shape = (work.cycles, system.num_nuclei)
     props = Propagators(system)
