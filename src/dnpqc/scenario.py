@@ -61,12 +61,14 @@ from .processor import (
     processor_for_spec,
 )
 from .program import (
+    MAX_SYNTHESIS_QUBITS,
     STRATEGIES,
     CompileJob,
     CompileSettings,
     TrotterSettings,
     Workload,
     check_synthesis_size,
+    synthesis_cost,
 )
 from .protocols import (
     AXIS_PHASES_RAD,
@@ -864,8 +866,18 @@ def gates_per_step(system: SpinSystem) -> int:
 
 
 def program_gates(scenario: Scenario) -> int:
-    """Gates of the compiled program, about: cycles × steps per cycle × gates per step."""
-    return scenario.cycles * steps_per_cycle(scenario) * gates_per_step(scenario.system)
+    """Gates of the compiled program, about: cycles × steps per cycle × gates per step (the
+    product formula), or cycles × 3 × the synthesized cycle's CX count (cycle-unitary); the
+    larger of the two for `auto`."""
+    trotter = scenario.cycles * steps_per_cycle(scenario) * gates_per_step(scenario.system)
+    synthesized = scenario.cycles * 3 * synthesis_cost(scenario.system.num_qubits)
+    strategy = scenario.compile.strategy
+    if strategy == "trotter":
+        return trotter
+    if strategy == "cycle-unitary":
+        return synthesized
+    fits = scenario.system.num_qubits <= MAX_SYNTHESIS_QUBITS
+    return max(trotter, synthesized) if fits else trotter
 
 
 def sweep_work(scenario: Scenario, engine: str) -> int:
