@@ -215,12 +215,41 @@ def case_strategies() -> None:
             line(f"5 strategies, NV+{n}", f"{topology}: {_strategy_rows(sc, processor)}")
 
 
+def case_typical_at_scale() -> None:
+    """The typical engine at NV + 15 (16 qubits): 32 states, 2 cycles, one point."""
+    sc = parse_scenario(cluster(15, points=1, cycles=2))
+    result, t_ours = timed(lambda: simulate(sc, "typical"))
+    line(
+        "6 typical engine NV+15",
+        f"32 states, 2 cycles: {t_ours:.3g} s/point; P(N1) = {result.polarization[0, -1, 0]:.3f}"
+        f" ± {result.stderr[0, -1, 0]:.3f}, max stderr {np.max(result.stderr):.3f}",
+    )
+
+
+def case_serial_vs_pool() -> None:
+    """`dnpqc run` of the demo's engines in one process and on a pool of two workers (each
+    limited to cores // workers threads)."""
+    from dnpqc.job import run_scenario
+
+    sc = demo_scenario()
+    engines = ("exact", "trotter", "noisy")
+    _, t_serial = timed(lambda: run_scenario(sc, engines, workers=1))
+    _, t_pool = timed(lambda: run_scenario(sc, engines, workers=2))
+    line(
+        "7 demo run, serial vs pool",
+        f"exact+trotter+noisy, 33 points: serial {t_serial:.3g} s, 2 workers {t_pool:.3g} s "
+        f"-> pool {t_serial / t_pool:.2f}x",
+    )
+
+
 CASES = {
     "1": case_exact_vs_qutip,
     "2": case_compile_once,
     "3": case_noisy_throughput,
     "4": case_scaling,
     "5": case_strategies,
+    "6": case_typical_at_scale,
+    "7": case_serial_vs_pool,
 }
 
 if __name__ == "__main__":

@@ -63,3 +63,21 @@ def test_memory_guards_name_the_figure_and_the_way_out():
         simulate(replace(sc, system=big), "exact")
     with pytest.raises(ScenarioError, match="the trotter engine needs about"):
         simulate(replace(sc, system=big), "trotter")
+
+
+def test_chebyshev_propagator_equals_scipy_expm_multiply():
+    # against scipy's expm_multiply (Al-Mohy & Higham, SIAM J. Sci. Comput. 33, 488, 2011),
+    # an independent algorithm, on the model's sparse Hamiltonian and a block of random states
+    import scipy.sparse.linalg
+
+    from dnpqc.engines.typical import ScaledHamiltonian, chebyshev_propagate
+    from dnpqc.model import hamiltonian
+
+    system = SpinSystem(0.03, tuple(Nucleus(f"N{j}", 8e3 * j - 9e3, 4e3 * j) for j in (1, 2, 3)))
+    h = hamiltonian(system, rabi_hz=330e3, detuning_hz=2e3).to_matrix(sparse=True).tocsr()
+    rng = np.random.default_rng(7)
+    states = rng.normal(size=(16, 5)) + 1j * rng.normal(size=(16, 5))
+    for time_s in (1e-9, 3e-6, 40e-6):
+        expected = scipy.sparse.linalg.expm_multiply(-2j * np.pi * time_s * h, states)
+        got = chebyshev_propagate(ScaledHamiltonian.of(h), states, time_s)
+        assert np.allclose(got, expected, atol=1e-11, rtol=0)

@@ -24,6 +24,7 @@ import numpy as np
 from .engines import EngineOptions, simulate_program
 from .errors import RunError, ScenarioError
 from .program import Program, Workload
+from .resources import limit_threads, threads_per_worker
 from .results import SweepResult
 from .store import ResultsStore
 
@@ -89,13 +90,15 @@ def _executor(workers: int, scheduler: str | None):
         workers,
         mp_context=multiprocessing.get_context("spawn"),
         initializer=_worker_setup,
-        initargs=(os.getpid(),),
+        initargs=(os.getpid(), threads_per_worker(workers)),
     )
 
 
-def _worker_setup(parent_pid: int) -> None:
-    """In each pool worker: leave Ctrl-C to the parent (which stops the pool cleanly), and exit
-    when the parent is gone (a SIGKILLed run must not leave workers behind)."""
+def _worker_setup(parent_pid: int, threads: int) -> None:
+    """In each pool worker: at most `threads` threads (workers × threads ≤ cores), leave
+    Ctrl-C to the parent (which stops the pool cleanly), and exit when the parent is gone (a
+    SIGKILLed run must not leave workers behind)."""
+    limit_threads(threads)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     threading.Thread(target=_exit_with_parent, args=(parent_pid,), daemon=True).start()
 
