@@ -14,8 +14,9 @@ from qiskit.quantum_info import DensityMatrix, Kraus, Operator, SuperOp, average
 from qiskit_aer import AerSimulator
 from qiskit_aer.noise import depolarizing_error
 
-from dnpqc import ScenarioError, parse_scenario, simulate
+from dnpqc import parse_scenario, simulate
 from dnpqc.engines.noisy import choose_method
+from dnpqc.errors import RunError
 from dnpqc.imperfections import Imperfections
 from dnpqc.job import scenario_programs
 from dnpqc.model import nuclear_frequency_hz
@@ -145,7 +146,7 @@ def test_trajectories_agree_with_the_density_matrix():
 
 def test_density_matrix_memory_guard():
     sc = parse_scenario(NOISY + '[noise]\nmethod = "density_matrix"\n')
-    with pytest.raises(ScenarioError, match=r"needs 16 EiB for 30 qubits .* use \"trajectories\""):
+    with pytest.raises(RunError, match=r"needs 16 EiB for 30 qubits .* use \"trajectories\""):
         choose_method(sc.noise, 30)
     assert choose_method(replace(sc.noise, method="auto"), 30) == "trajectories"
 

@@ -94,6 +94,10 @@ class Workload:
     def nodes(self) -> list[tuple[float, float, float]]:
         return self.imperfections.nodes()
 
+    def weights(self) -> np.ndarray:
+        """Weights of the imperfection nodes (sum 1)."""
+        return np.array([w for w, _, _ in self.nodes()])
+
     @property
     def sampled(self) -> bool:
         return self.imperfections.method == "sampling" and self.imperfections.active

@@ -22,12 +22,9 @@ from .mapping import MappedProgram
 from .output import one_line, write_text
 from .processor import build_target
 from .program import Program
+from .trotter import cycle_label
 
 READOUT = "nuclei"
-
-
-def cycle_register(cycle: int) -> str:
-    return f"cycle_{cycle}"
 
 
 def hardware_program(
@@ -41,7 +38,7 @@ def hardware_program(
     registers = {}
     for c in range(1, len(saves) + 1):
         if measure_each_cycle or c == len(saves):
-            name = cycle_register(c) if measure_each_cycle else READOUT
+            name = cycle_label(c) if measure_each_cycle else READOUT
             registers[c] = ClassicalRegister(n, name)
             local.add_register(registers[c])
     cycle = 0

@@ -13,7 +13,7 @@ import os
 
 from threadpoolctl import threadpool_limits
 
-from .errors import ScenarioError
+from .errors import RunError
 
 #: Environment variable with the threads one process may use (unset: all cores).
 THREADS_VARIABLE = "DNPQC_THREADS"
@@ -70,7 +70,7 @@ def require_memory(engine: str, need_bytes: float, what: str, alternative: str) 
     """Refuse a run whose estimate exceeds half the memory, naming the figure and a way out."""
     have = memory_budget_bytes()
     if need_bytes > have:
-        raise ScenarioError(
+        raise RunError(
             f"the {engine} engine needs about {format_bytes(need_bytes)} for {what}, more than "
             f"half the memory ({format_bytes(have)}); {alternative}"
         )

@@ -139,15 +139,16 @@ def pauli_terms(
 
 
 def _by_support(op) -> dict[tuple[str, tuple[int, ...]], float]:
+    """{(pauli letters, qubits ascending): real coefficient} of a Hermitian SparsePauliOp."""
     out: dict[tuple[str, tuple[int, ...]], float] = {}
-    for label, coeff in op.to_list():
-        qubits = tuple(q for q in range(len(label)) if label[len(label) - 1 - q] != "I")
-        if not qubits:
+    for letters, indices, coeff in op.to_sparse_list():
+        support = sorted((q, p) for q, p in zip(indices, letters, strict=True) if p != "I")
+        if not support:
             continue
         if abs(coeff.imag) > 1e-12:
-            raise ValueError(f"non-Hermitian term {label}: {coeff}")
-        pauli = "".join(label[len(label) - 1 - q] for q in qubits)
-        out[(pauli, qubits)] = out.get((pauli, qubits), 0.0) + float(coeff.real)
+            raise ValueError(f"non-Hermitian term {letters} on {list(indices)}: {coeff}")
+        key = ("".join(p for _, p in support), tuple(q for q, _ in support))
+        out[key] = out.get(key, 0.0) + float(coeff.real)
     return out
 
 

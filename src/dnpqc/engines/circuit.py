@@ -139,7 +139,7 @@ def simulate_circuits(
 ) -> SweepResult:
     """Run `circuits` (the program's, logical or mapped) over its rows and average the nodes."""
     work = program.workload
-    weights = np.array([w for w, _, _ in work.nodes()])
+    weights = work.weights()
     per_node = len(weights)
     done = [0]
 

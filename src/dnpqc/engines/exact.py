@@ -33,7 +33,7 @@ def simulate_exact(work: Workload, *, on_point: Callable[[], None] | None = None
             rows.append(polarization_by_cycle(u, work.cycles, system.num_nuclei))
         if on_point is not None:
             on_point()
-    weights = np.array([w for w, _, _ in work.nodes()])
+    weights = work.weights()
     pol, err = average_nodes(np.array(rows).reshape(-1, *shape), weights, work.sampled)
     values = np.asarray(work.values)
     return SweepResult("exact", work.parameter, values, system.labels, pol, err)

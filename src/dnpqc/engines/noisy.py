@@ -19,7 +19,7 @@ from qiskit import QuantumCircuit
 from qiskit_aer import AerSimulator
 from qiskit_aer.library import SaveProbabilities
 
-from ..errors import ScenarioError
+from ..errors import RunError
 from ..model import z_signs
 from ..noise import NoiseSettings, noise_model, readout_factor, with_idle_relaxation
 from ..program import Program
@@ -42,7 +42,7 @@ def choose_method(noise: NoiseSettings, num_qubits: int) -> str:
     if method == "auto":
         return "density_matrix" if need <= have else "trajectories"
     if method == "density_matrix" and need > have:
-        raise ScenarioError(
+        raise RunError(
             f'`noise.method` = "density_matrix" needs {format_bytes(need)} for {num_qubits} '
             f"qubits (16·4^q bytes), more than half the memory ({format_bytes(have)}); use "
             '"trajectories"'
@@ -114,7 +114,7 @@ def _trajectories(program, circuits, model, factor, noise, on_point) -> SweepRes
     work = program.workload
     n, cycles = work.system.num_nuclei, work.cycles
     columns = row_columns(work)
-    weights = np.array([w for w, _, _ in work.nodes()])
+    weights = work.weights()
     per_point = len(weights)
     mean = np.empty((len(work.values), cycles, n))
     err = np.empty_like(mean)
