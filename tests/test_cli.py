@@ -49,6 +49,7 @@ def test_run_writes_report_and_summary(small, tmp_path, capsys):
     report = json.loads((out / "report.json").read_text())
     assert set(report["engines"]) == {"exact", "trotter"}
     assert report["trotter_error"] < 0.05
+    assert report["warnings"] == []
     peaks = report["analysis"]["exact"]["peaks"]
     assert set(peaks) == {"C1", "C2"}
     lines = (out / "sweep.csv").read_text().splitlines()
@@ -175,11 +176,19 @@ def test_run_with_processor_compares_noisy_to_exact(tmp_path, capsys):
     out = tmp_path / "out"
     assert main(["run", str(path), "--out", str(out)]) == 0
     report = json.loads((out / "report.json").read_text())
-    assert set(report["engines"]) == {"exact", "trotter", "noisy"}
+    assert set(report["engines"]) == {"exact", "trotter", "noisy", "noisy-baseline"}
     noisy = next(c for c in report["comparison"] if c["engine"] == "noisy")
-    assert set(noisy["per_nucleus"]["C1"]) == {"peak", "shift", "contrast_ratio", "found"}
-    assert "peaks within the sweep resolution" in noisy["verdict"]
-    assert noisy["verdict"] in capsys.readouterr().out
+    assert [c["engine"] for c in report["comparison"]] == ["trotter", "noisy"]
+    assert {"peak", "shift", "contrast_ratio", "found", "signs_agree", "at_edge"} <= set(
+        noisy["per_nucleus"]["C1"]
+    )
+    assert "peaks found within the sweep resolution" in noisy["verdict"]
+    assert "noisy-baseline" in noisy["baseline"]
+    text = capsys.readouterr().out
+    assert noisy["verdict"] in text
+    # the Trotter error of this coarse program (12 steps) is flagged, in both places
+    assert any("Trotter error" in w for w in report["warnings"])
+    assert "warnings (" in text and report["warnings"][0] in text
 
 
 def test_sweep_noisy_engine(small, tmp_path):

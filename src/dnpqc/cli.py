@@ -14,6 +14,7 @@ from . import codesign, qasm, report
 from .budget import gate_budget
 from .engines import ENGINES, simulate
 from .engines.circuit import mapped_program
+from .engines.noisy import BASELINE_ENGINE
 from .errors import ScenarioError
 from .job import RunOutcome, run_scenario
 from .processor import Processor, make_processor, processor_for_spec
@@ -62,7 +63,8 @@ def _parser() -> argparse.ArgumentParser:
         "--engines",
         default=None,
         help="comma-separated engines (default: exact,trotter, plus noisy when the "
-        "scenario has a [processor] table)",
+        "scenario has a [processor] table; noisy brings its zero-transfer baseline "
+        "noisy-baseline)",
     )
     budget = sub.add_parser("budget", help="gate budget of the program on a processor")
     budget.add_argument("scenario", help="scenario TOML file")
@@ -134,6 +136,8 @@ def _cmd_run(args) -> int:
     scenario = _scenario(args.scenario)
     default = "exact,trotter,noisy" if scenario.processor is not None else "exact,trotter"
     engines = _engines(args.engines or default)
+    if "noisy" in engines and BASELINE_ENGINE not in engines:
+        engines += (BASELINE_ENGINE,)  # the comparison subtracts the measured artefact
     out = Path(args.out) if args.out else Path("results") / scenario.name
     workers = _workers(args.workers)
     store = _open_store(out, scenario, engines, resume=args.resume, fresh=args.fresh)

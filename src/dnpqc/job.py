@@ -7,6 +7,7 @@ from dataclasses import dataclass
 
 from .codesign import compare_processors, program_budget
 from .engines.circuit import Program, compile_program
+from .engines.noisy import BASELINE_ENGINE
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import processor_for_spec
 from .protocols import expected_resonances
@@ -15,6 +16,7 @@ from .results import SweepResult, best_common, max_difference, peaks, saturation
 from .scenario import Scenario
 from .store import ResultsStore
 from .sweep import run_engines
+from .verdicts import best_common_lines, compare_to_exact, run_warnings, saturation_lines
 
 
 @dataclass(frozen=True)
@@ -51,49 +53,35 @@ class RunOutcome:
         }
 
     def comparison(self, engine: str) -> dict[str, object]:
-        """`engine` against the exact reference: peak shifts, contrast, best value, verdict.
-
-        Peaks are taken on the baseline-subtracted signal |P - median| of both engines, so the
-        relaxation bias of a noisy processor does not count as a shift. A peak is found when it
-        lies within one grid step of the exact peak; contrast is the ratio of the peak heights.
-        """
+        """`engine` against the exact reference (see `verdicts.compare_to_exact`): signed P
+        minus the zero-transfer baseline of the same noisy program, edge peaks never found."""
         ref, other = self.analysis(self.reference.engine), self.analysis(engine)
-        ref_peaks = peaks(self.reference, baseline=True)
-        other_peaks = peaks(self.results[engine], baseline=True)
-        values = self.scenario.sweep.values
-        step = abs(values[1] - values[0]) if len(values) > 1 else 0.0
-        per: dict[str, dict[str, float | bool]] = {}
-        for label, peak in ref_peaks.items():
-            mine = other_peaks[label]
-            shift = mine["value"] - peak["value"]
-            per[label] = {
-                "peak": mine["value"],
-                "shift": shift,
-                "contrast_ratio": mine["polarization"] / peak["polarization"]
-                if peak["polarization"] > 0
-                else float("nan"),
-                "found": abs(shift) <= step,
-            }
-        found = sum(p["found"] for p in per.values())
-        par = self.scenario.sweep.parameter
-        verdict = (
-            f"{engine}: {found} of {len(per)} peaks within the sweep resolution "
-            f"({format_value(par, step)}) of the exact peaks"
+        baseline = self.results.get(BASELINE_ENGINE) if engine == "noisy" else None
+        out = compare_to_exact(
+            self.reference,
+            self.results[engine],
+            baseline=baseline,
+            best_common=(ref["best_common"]["value"], other["best_common"]["value"]),
         )
-        return {
-            "engine": engine,
-            "resolution": step,
-            "per_nucleus": per,
-            "best_common": other["best_common"]["value"],
-            "best_common_shift": other["best_common"]["value"] - ref["best_common"]["value"],
-            "saturation": other["saturation"]["mean_saturation"],
-            "all_found": found == len(per),
-            "verdict": verdict,
-        }
+        out["saturation"] = other["saturation"]["mean_saturation"]
+        return out
 
     def comparisons(self) -> list[dict[str, object]]:
         ref = self.reference.engine
-        return [self.comparison(e) for e in self.results if e != ref and ref == "exact"]
+        return [
+            self.comparison(e)
+            for e in self.results
+            if e not in (ref, BASELINE_ENGINE) and ref == "exact"
+        ]
+
+    def warnings(self) -> list[str]:
+        """What a planner must not miss (`verdicts.run_warnings`), plus unfound noisy peaks."""
+        error = None
+        if "exact" in self.results and "trotter" in self.results:
+            error = max_difference(self.results["exact"], self.results["trotter"])
+        out = run_warnings(self.scenario, self.reference, trotter_error=error)
+        out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
+        return out
 
     def to_json(self) -> dict[str, object]:
         sc = self.scenario
@@ -147,6 +135,7 @@ class RunOutcome:
             out["budget"] = self.budget
         if self.compare:
             out["compare"] = self.compare
+        out["warnings"] = self.warnings()
         return out
 
     def summary_lines(self) -> list[str]:
@@ -166,17 +155,8 @@ class RunOutcome:
                 f"  {label:>6}: peak at {format_value(par, peak['value'])}, "
                 f"|P| = {peak['polarization']:.3f} (a-priori: {guide})"
             )
-        common = ana["best_common"]
-        lines.append(
-            f"  best common {par}: {format_value(par, common['value'])} "
-            f"(mean |P| {common['mean_polarization']:.3f}, worst {common['min_polarization']:.3f})"
-        )
-        sat = ana["saturation"]
-        note = " (extrapolated beyond the run)" if sat["extrapolated"] else ""
-        lines.append(
-            f"  saturation there: mean |P| -> {sat['mean_saturation']:.3f}; "
-            f"{sat['cycles']} cycles reach {sat['fraction']:.0%} of it{note}"
-        )
+        lines += best_common_lines(par, ana["best_common"])
+        lines += saturation_lines(ana["saturation"])
         if "exact" in self.results and "trotter" in self.results:
             err = max_difference(self.results["exact"], self.results["trotter"])
             lines.append(f"  Trotter error (max |P_trotter - P_exact|): {err:.2e}")
@@ -201,6 +181,10 @@ class RunOutcome:
                 f"{per['swaps']:.0f} SWAPs per cycle, {total['duration_s'] * 1e6:.4g} µs in all, "
                 f"success estimate {total['success_estimate']:.3g}"
             )
+        warnings = self.warnings()
+        if warnings:
+            lines.append(f"  warnings ({len(warnings)}):")
+            lines += [f"  ! {w}" for w in warnings]
         return lines
 
 

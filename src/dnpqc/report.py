@@ -142,10 +142,14 @@ ENGINE_STYLES = {"exact": "-", "trotter": ":", "noisy": "--"}
 def buildup_figure(
     results: list[SweepResult], point: int, fits: dict[str, dict[str, dict[str, float]]]
 ):
-    """|P_j| vs cycle at sweep point `point` for each engine (exact solid, noisy dashed), with
-    the fitted saturation curves faint; `fits[engine][label]` as from `results.saturation`."""
+    """Signed P_j vs cycle at sweep point `point` for each engine (exact solid, noisy dashed),
+    with the fitted saturation curves faint, signed like the last cycle (the fit is of |P|);
+    `fits[engine][label]` as from `results.saturation`. A noisy nucleus whose sign differs
+    from the exact one shows as such."""
+    from matplotlib.ticker import MaxNLocator
+
     plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6.5, 4.2))
+    fig, ax = plt.subplots(figsize=(8.0, 4.2))
     result = results[0]
     cycles = np.arange(1, result.cycles + 1)
     fine = np.linspace(0, result.cycles, 200)
@@ -153,29 +157,33 @@ def buildup_figure(
         style = ENGINE_STYLES.get(res.engine, "-.")
         for j, label in enumerate(res.nuclei):
             fit = fits[res.engine][label]
+            curve = res.polarization[point, :, j]
+            sign = 1.0 if curve[-1] >= 0 else -1.0
             ax.plot(
                 cycles,
-                np.abs(res.polarization[point, :, j]),
+                curve,
                 style,
                 marker="o",
                 ms=3,
                 color=f"C{j}",
-                label=f"{label} {res.engine} (sat. {fit['saturation']:.2f})",
+                label=f"{label} {res.engine} (|P|sat {fit['saturation']:.2f})",
             )
             ax.plot(
                 fine,
-                fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
+                sign * fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
                 color=f"C{j}",
                 lw=0.6,
                 alpha=0.5,
             )
+    ax.axhline(0.0, color="0.6", lw=0.5)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_xlabel("cycle")
-    ax.set_ylabel("|P|")
-    ax.set_ylim(0, 1.05)
+    ax.set_ylabel("P (signed)")
+    ax.set_ylim(-1.05, 1.05)
     ax.set_title(
         f"Build-up at {result.parameter} = {format_value(result.parameter, result.values[point])}"
     )
-    ax.legend(fontsize=6, ncol=2)
+    ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     fig.tight_layout()
     return fig
 

@@ -1,6 +1,7 @@
 """Simulation engines: `exact` (dense reference), `trotter` (compiled circuit, noiseless) and
-`noisy` (the mapped circuit with processor noise), `typical` (random states, sparse
-propagation: large clusters)."""
+`noisy` (the mapped circuit with processor noise), `noisy-baseline` (the same noisy program
+with no transfer: the processor's artefact), `typical` (random states, sparse propagation:
+large clusters)."""
 
 from __future__ import annotations
 
@@ -11,13 +12,14 @@ from ..results import SweepResult
 from ..scenario import Scenario
 from .circuit import simulate_trotter
 from .exact import simulate_exact
-from .noisy import simulate_noisy
+from .noisy import BASELINE_ENGINE, simulate_noisy, simulate_noisy_baseline
 from .typical import simulate_typical
 
 ENGINES: dict[str, Callable[..., SweepResult]] = {
     "exact": simulate_exact,
     "trotter": simulate_trotter,
     "noisy": simulate_noisy,
+    BASELINE_ENGINE: simulate_noisy_baseline,
     "typical": simulate_typical,
 }
 

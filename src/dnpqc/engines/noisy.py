@@ -21,7 +21,7 @@ from qiskit_aer.library import SaveProbabilities
 
 from ..errors import ScenarioError
 from ..model import z_signs
-from ..noise import noise_model, readout_factor, with_idle_relaxation
+from ..noise import noise_model, readout_factor, with_idle_relaxation, without_transfer
 from ..processor import Processor, make_processor
 from ..resources import density_matrix_bytes, format_bytes, memory_budget_bytes
 from ..results import SweepResult
@@ -82,16 +82,25 @@ def _trajectory_reader(factor: float) -> Callable[[dict, int, int], np.ndarray]:
     return read
 
 
+BASELINE_ENGINE = "noisy-baseline"
+
+
 def simulate_noisy(
-    scenario: Scenario, *, on_point: Callable[[], None] | None = None
+    scenario: Scenario, *, on_point: Callable[[], None] | None = None, transfer: bool = True
 ) -> SweepResult:
-    """Polarizations of the mapped program under processor noise (and imperfections)."""
+    """Polarizations of the mapped program under processor noise (and imperfections).
+
+    Without `transfer`: the zero-transfer baseline of the same program (`without_transfer`).
+    """
     processor = scenario_processor(scenario)
     mapped = mapped_program(scenario, processor)
     scale = scenario.noise.scale
     circuit = mapped.circuit
     if scenario.noise.idle:
         circuit = with_idle_relaxation(circuit, mapped.region, processor, scale)
+    engine = "noisy"
+    if not transfer:
+        circuit, engine = without_transfer(circuit), BASELINE_ENGINE
     model = noise_model(processor, mapped.region, scale)
     factor = readout_factor(processor, scale)
     method = choose_method(scenario, circuit.num_qubits)
@@ -101,8 +110,15 @@ def simulate_noisy(
         def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
             return factor * nuclear_polarizations(data, cycles, num_nuclei)
 
-        return simulate_circuit(scenario, circuit, "noisy", sim, reader=read, on_point=on_point)
-    return _trajectories(scenario, _pershot(circuit), model, factor, on_point)
+        return simulate_circuit(scenario, circuit, engine, sim, reader=read, on_point=on_point)
+    return _trajectories(scenario, _pershot(circuit), model, factor, on_point, engine)
+
+
+def simulate_noisy_baseline(
+    scenario: Scenario, *, on_point: Callable[[], None] | None = None
+) -> SweepResult:
+    """The zero-transfer baseline of the noisy program: the processor's own artefact."""
+    return simulate_noisy(scenario, on_point=on_point, transfer=False)
 
 
 def point_seed(base: int, value: float) -> int:
@@ -111,7 +127,7 @@ def point_seed(base: int, value: float) -> int:
     return (base + int.from_bytes(digest[:4], "little")) % 2**31
 
 
-def _trajectories(scenario, circuit, model, factor, on_point) -> SweepResult:
+def _trajectories(scenario, circuit, model, factor, on_point, engine) -> SweepResult:
     """Per point (own seed): means and standard errors, combined over imperfection nodes."""
     n, cycles = scenario.system.num_nuclei, scenario.cycles
     columns, weights = node_columns(scenario)
@@ -140,4 +156,4 @@ def _trajectories(scenario, circuit, model, factor, on_point) -> SweepResult:
         if on_point is not None:
             on_point()
     values = np.asarray(scenario.sweep.values)
-    return SweepResult("noisy", scenario.sweep.parameter, values, scenario.system.labels, mean, err)
+    return SweepResult(engine, scenario.sweep.parameter, values, scenario.system.labels, mean, err)
