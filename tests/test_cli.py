@@ -120,7 +120,15 @@ def test_budget_json_and_table(small, tmp_path, capsys):
     ]
     assert main(argv) == 0
     data = json.loads(path.read_text())
-    for key in ("processor", "qubits", "per_cycle", "total", "trotter_error", "compare"):
+    for key in (
+        "processor",
+        "qubits",
+        "per_cycle",
+        "total",
+        "trotter_error",
+        "compare",
+        "warnings",
+    ):
         assert key in data
     for part in ("per_cycle", "total"):
         assert {

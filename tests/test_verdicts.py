@@ -10,7 +10,7 @@ from dnpqc import parse_scenario, simulate
 from dnpqc.engines.noisy import BASELINE_ENGINE
 from dnpqc.model import nuclear_frequency_hz
 from dnpqc.results import SweepResult, best_common, saturation
-from dnpqc.verdicts import compare_to_exact, run_warnings
+from dnpqc.verdicts import budget_warnings, compare_to_exact, run_warnings
 
 X = np.linspace(300e3, 360e3, 13)
 
@@ -147,3 +147,13 @@ def test_detuning_sweep_reports_both_matches_and_the_engine_shows_them():
     for side in (-1, 1):
         half = values * side > 0
         assert abs(values[half][np.argmax(curve[half])] - side * delta) <= 2 * step
+
+
+def test_budget_warnings():
+    # the case of the issue: 1024 steps advised with a success estimate of 1.7e-244
+    ladder = [{"steps": 1024, "trotter_error": 0.01, "success_estimate": 1.7e-244}]
+    ladder[0]["total_error"] = 0.01 + 1 - 1.7e-244
+    data = {"trotter_error": {"value": 0.21}, "steps_advice": {"ladder": ladder}}
+    warnings = budget_warnings(data)
+    assert len(warnings) == 2 and "0.21 exceeds 0.05" in warnings[0]
+    assert budget_warnings({"trotter_error": {"value": 0.01}}) == []

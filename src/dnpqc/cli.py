@@ -10,7 +10,7 @@ from pathlib import Path
 
 from tqdm import tqdm
 
-from . import codesign, qasm, report
+from . import codesign, qasm, report, verdicts
 from .budget import gate_budget
 from .engines import ENGINES, simulate
 from .engines.circuit import mapped_program
@@ -258,10 +258,13 @@ def _cmd_budget(args) -> int:
         data["steps_advice"] = codesign.steps_advice(scenario, processor, args.target_error)
     if args.scaling:
         data["scaling"] = codesign.scaling_table(scenario, processor)
+    data["warnings"] = verdicts.budget_warnings(data)
     if args.json:
         report.write_json(Path(args.json), data)
     for line in report.budget_lines(data):
         print(line)
+    for warning in data["warnings"]:
+        print(f"! {warning}")
     return 0
 
 

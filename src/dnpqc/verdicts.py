@@ -162,16 +162,25 @@ def run_warnings(
         _rabi_far_from_matches(scenario),
         _detuning_matches(scenario),
     ]
-    if trotter_error is not None and trotter_error > TROTTER_ERROR_LIMIT:
-        checks.append(
-            [
-                f"Trotter error {trotter_error:.3g} exceeds {TROTTER_ERROR_LIMIT}: raise "
-                "`trotter.steps` (keep ν_L·T/steps ≲ 0.15) before trusting the circuit engines"
-            ]
-        )
+    checks.append(_trotter_too_large(trotter_error))
     if steps_advice is not None:
         checks.append(_hopeless_advice(steps_advice))
     return [w for check in checks for w in check]
+
+
+def budget_warnings(budget: dict) -> list[str]:
+    """Warnings of `dnpqc budget`: a large Trotter error, step advice with no usable count."""
+    error = budget.get("trotter_error", {}).get("value")
+    return _trotter_too_large(error) + _hopeless_advice(budget.get("steps_advice", {}))
+
+
+def _trotter_too_large(error: float | None) -> list[str]:
+    if error is None or error <= TROTTER_ERROR_LIMIT:
+        return []
+    return [
+        f"Trotter error {error:.3g} exceeds {TROTTER_ERROR_LIMIT}: raise `trotter.steps` (keep "
+        "ν_L·T/steps ≲ 0.15) before trusting the circuit engines"
+    ]
 
 
 def _no_transfer(result: SweepResult) -> list[str]:
