@@ -48,7 +48,9 @@ def test_run_writes_report_and_summary(small, tmp_path, capsys):
         assert (out / name).stat().st_size > 0
     report = json.loads((out / "report.json").read_text())
     assert set(report["engines"]) == {"exact", "trotter"}
-    assert report["trotter_error"] < 0.05
+    # one Trotter error record, the same shape as `dnpqc budget` writes
+    assert set(report["trotter_error"]) == {"value", "method", "points"}
+    assert report["trotter_error"]["value"] < 0.05 and report["trotter_error"]["points"] == 8
     assert report["warnings"] == []
     peaks = report["analysis"]["exact"]["peaks"]
     assert set(peaks) == {"C1", "C2"}
@@ -196,6 +198,7 @@ def test_run_with_processor_compares_noisy_to_exact(tmp_path, capsys):
     assert noisy["verdict"] in text
     # the Trotter error of this coarse program (12 steps) is flagged, in both places
     assert any("Trotter error" in w for w in report["warnings"])
+    assert report["budget"]["trotter_error"] == report["trotter_error"]
     assert "warnings (" in text and report["warnings"][0] in text
 
 

@@ -5,14 +5,14 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from .codesign import compare_processors, program_budget
+from .codesign import compare_processors, measured_trotter_error, program_budget
 from .engines.circuit import Program, compile_program
 from .engines.noisy import BASELINE_ENGINE
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import processor_for_spec
 from .protocols import expected_resonances
 from .report import format_value
-from .results import SweepResult, best_common, max_difference, peaks, saturation
+from .results import SweepResult, best_common, peaks, saturation
 from .scenario import Scenario
 from .store import ResultsStore
 from .sweep import run_engines
@@ -74,12 +74,17 @@ class RunOutcome:
             if e not in (ref, BASELINE_ENGINE) and ref == "exact"
         ]
 
+    def trotter_error(self) -> dict[str, object] | None:
+        """{value, method, points} over every point of the run (with exact and trotter)."""
+        if "exact" in self.results and "trotter" in self.results:
+            return measured_trotter_error(self.results["exact"], self.results["trotter"])
+        return None
+
     def warnings(self) -> list[str]:
         """What a planner must not miss (`verdicts.run_warnings`), plus unfound noisy peaks."""
-        error = None
-        if "exact" in self.results and "trotter" in self.results:
-            error = max_difference(self.results["exact"], self.results["trotter"])
-        out = run_warnings(self.scenario, self.reference, trotter_error=error)
+        error = self.trotter_error()
+        value = error["value"] if error else None
+        out = run_warnings(self.scenario, self.reference, trotter_error=value)
         out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
         return out
 
@@ -127,12 +132,14 @@ class RunOutcome:
                 "depth": circuit.depth(),
             },
         }
-        if "exact" in self.results and "trotter" in self.results:
-            out["trotter_error"] = max_difference(self.results["exact"], self.results["trotter"])
+        if self.trotter_error() is not None:
+            out["trotter_error"] = self.trotter_error()
         if self.comparisons():
             out["comparison"] = self.comparisons()
         if self.budget is not None:
             out["budget"] = self.budget
+            if self.trotter_error() is not None:
+                out["budget"] = {**self.budget, "trotter_error": self.trotter_error()}
         if self.compare:
             out["compare"] = self.compare
         out["warnings"] = self.warnings()
@@ -157,9 +164,12 @@ class RunOutcome:
             )
         lines += best_common_lines(par, ana["best_common"])
         lines += saturation_lines(ana["saturation"])
-        if "exact" in self.results and "trotter" in self.results:
-            err = max_difference(self.results["exact"], self.results["trotter"])
-            lines.append(f"  Trotter error (max |P_trotter - P_exact|): {err:.2e}")
+        if self.trotter_error() is not None:
+            err = self.trotter_error()
+            lines.append(
+                f"  Trotter error (max |P_trotter - P_exact|, {err['points']} points): "
+                f"{err['value']:.2e}"
+            )
         for comp in self.comparisons():
             if comp["engine"] == "trotter":
                 continue
