@@ -561,6 +561,12 @@ def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
         isinstance(e, Pulse) for e in elements
     ):
         raise ScenarioError("`drive.block` needs at least one pulse and at least one `wait`")
+    total = sum(e.fraction for e in elements if isinstance(e, BlockWait))
+    if not math.isclose(total, 1.0, rel_tol=1e-9):
+        raise ScenarioError(
+            f"`drive.block` waits are fractions of the block length `drive.tau_s` and must sum "
+            f"to 1, got {total:g}"
+        )
     return tuple(elements)
 
 
