@@ -55,7 +55,7 @@ def test_run_writes_report_and_summary(small, tmp_path, capsys):
     peaks = report["analysis"]["exact"]["peaks"]
     assert set(peaks) == {"C1", "C2"}
     lines = (out / "sweep.csv").read_text().splitlines()
-    assert lines[0] == "engine,rabi_hz,cycle,nucleus,polarization"
+    assert lines[0] == "engine,rabi_hz,cycle,nucleus,polarization,stderr"
     assert len(lines) == 1 + 2 * 8 * 3 * 2
     text = capsys.readouterr().out
     assert "best common rabi_hz" in text and "report:" in text

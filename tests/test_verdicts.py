@@ -9,6 +9,8 @@ from conftest import THREE_NUCLEI, one_nucleus
 from dnpqc import parse_scenario, simulate
 from dnpqc.engines.noisy import BASELINE_ENGINE
 from dnpqc.model import nuclear_frequency_hz
+from dnpqc.report import axis_label, count_of, format_value
+from dnpqc.resources import format_bytes
 from dnpqc.results import SweepResult, best_common, saturation
 from dnpqc.verdicts import budget_warnings, compare_to_exact, run_warnings
 
@@ -157,3 +159,13 @@ def test_budget_warnings():
     warnings = budget_warnings(data)
     assert len(warnings) == 2 and "0.21 exceeds 0.05" in warnings[0]
     assert budget_warnings({"trotter_error": {"value": 0.01}}) == []
+
+
+def test_readable_numbers_and_labels():
+    assert format_value("interaction_time_s", 0.1498) == "149.8 ms"
+    assert format_value("tau_s", 2.77e-6) == "2.77 µs"
+    assert format_value("rabi_hz", 545.3e3) == "545.3 kHz"
+    assert format_value("rabi_hz", 2.5e6) == "2.5 MHz"
+    assert count_of(1, "nucleus", "nuclei") == "1 nucleus" and count_of(3, "cycle") == "3 cycles"
+    assert axis_label("rabi_hz") == "Ω/2π (kHz)" and axis_label("tau_s") == "τ (µs)"
+    assert format_bytes(2**98) == "2^98 B" and format_bytes(3 * 2**30) == "3 GiB"

@@ -5,13 +5,15 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
+import numpy as np
+
 from .codesign import compare_processors, measured_trotter_error, program_budget
 from .engines.circuit import Program, compile_program
 from .engines.noisy import BASELINE_ENGINE
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import processor_for_spec
 from .protocols import expected_resonances
-from .report import format_value
+from .report import count_of, format_value
 from .results import SweepResult, best_common, peaks, saturation
 from .scenario import Scenario
 from .store import ResultsStore
@@ -152,15 +154,21 @@ class RunOutcome:
         res = self.reference
         ana = self.analysis(res.engine)
         lines = [
-            f"scenario {sc.name!r}: {sc.protocol.kind}, {sc.system.num_nuclei} nuclei, "
-            f"{len(sc.sweep.values)} points of {par}, {sc.cycles} cycles ({res.engine} engine)",
+            f"scenario {sc.name!r}: {sc.protocol.kind}, "
+            f"{count_of(sc.system.num_nuclei, 'nucleus', 'nuclei')}, "
+            f"{count_of(len(sc.sweep.values), 'point')} of {par}, "
+            f"{count_of(sc.cycles, 'cycle')} ({res.engine} engine)",
         ]
         expected = self.resonances()
-        for label, peak in ana["peaks"].items():
+        for j, (label, peak) in enumerate(ana["peaks"].items()):
             guide = ", ".join(format_value(par, v) for v in expected[label]) or "-"
+            spread = ""
+            if res.stderr is not None:  # sampling engines: the standard error at the peak
+                i = int(np.argmin(np.abs(res.values - peak["value"])))
+                spread = f" ± {res.stderr[i, -1, j]:.3f}"
             lines.append(
                 f"  {label:>6}: peak at {format_value(par, peak['value'])}, "
-                f"|P| = {peak['polarization']:.3f} (a-priori: {guide})"
+                f"|P| = {peak['polarization']:.3f}{spread} (a-priori: {guide})"
             )
         lines += best_common_lines(par, ana["best_common"])
         lines += saturation_lines(ana["saturation"])

@@ -20,7 +20,7 @@ from qiskit import ClassicalRegister, QuantumCircuit, qasm3, transpile
 
 from .mapping import MappedProgram
 from .processor import build_target
-from .report import write_text
+from .report import count_of, write_text
 from .scenario import Scenario
 
 READOUT = "nuclei"
@@ -78,8 +78,9 @@ def header_lines(
     parameter = scenario.sweep.parameter
     lines = [
         f"dnpqc program for scenario {scenario.name!r} (content hash {scenario.digest}):",
-        f"  {scenario.protocol.kind}, {scenario.system.num_nuclei} nuclei, {scenario.cycles} "
-        f"cycles, {scenario.trotter.steps} Trotter steps of order {scenario.trotter.order}.",
+        f"  {scenario.protocol.kind}, {count_of(scenario.system.num_nuclei, 'nucleus', 'nuclei')}, "
+        f"{count_of(scenario.cycles, 'cycle')}, {scenario.trotter.steps} Trotter steps of order "
+        f"{scenario.trotter.order}.",
         "Model: H/h in Hz, U = exp(-2πi·H·t); NV qubit {|0> = m_s 0, |1> = m_s -1}, nuclei",
         "  |0> = spin up along B0; the nuclei start maximally mixed (H, CX to the NV, NV reset).",
         "  Readout bit j = nucleus j+1; its polarization is P = 1 - 2·mean(bit).",

@@ -29,9 +29,41 @@ def axis_unit(parameter: str) -> tuple[str, float]:
     return "", 1.0
 
 
+#: Readable names of the swept keys for axis labels (cyclic frequencies as Ω/2π etc.).
+_SYMBOLS = {
+    "rabi_hz": "Ω/2π",
+    "detuning_hz": "Δ/2π",
+    "tau_s": "τ",
+    "interaction_time_s": "T",
+}
+
+#: Units a single value is written in, largest first: (suffix, threshold, unit, scale).
+_VALUE_UNITS = {
+    "_hz": ((1e6, "MHz", 1e-6), (0.0, "kHz", 1e-3)),
+    "_s": ((1.0, "s", 1.0), (1e-3, "ms", 1e3), (0.0, "µs", 1e6)),
+}
+
+
+def axis_label(parameter: str) -> str:
+    """Axis label of a swept key, e.g. "Ω/2π (kHz)" for rabi_hz, "τ (µs)" for tau_s."""
+    unit, _ = axis_unit(parameter)
+    name = _SYMBOLS.get(parameter, parameter)
+    return f"{name} ({unit})" if unit else name
+
+
 def format_value(parameter: str, value: float) -> str:
-    unit, scale = axis_unit(parameter)
-    return f"{value * scale:.4g} {unit}".strip()
+    """One value of a swept key in a readable unit: kHz or MHz, µs, ms or s."""
+    for suffix, units in _VALUE_UNITS.items():
+        if parameter.endswith(suffix):
+            for threshold, unit, scale in units:
+                if abs(value) >= threshold:
+                    return f"{value * scale:.4g} {unit}"
+    return f"{value:.4g}"
+
+
+def count_of(count: int, noun: str, plural: str | None = None) -> str:
+    """ "1 nucleus", "3 nuclei": a count with its noun in the right number."""
+    return f"{count} {noun if count == 1 else plural or noun + 's'}"
 
 
 def _write_atomic(path: Path, write: Callable[[io.IOBase], None], *, binary: bool = False) -> None:
@@ -57,10 +89,11 @@ def write_json(path: Path, data: object) -> None:
 
 
 def sweep_csv(results: list[SweepResult]) -> str:
-    """Long-format CSV: engine, swept value, cycle (1-based), nucleus, polarization."""
+    """Long-format CSV: engine, swept value, cycle (1-based), nucleus, polarization, and the
+    standard error of sampling engines (empty for the deterministic ones)."""
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(["engine", results[0].parameter, "cycle", "nucleus", "polarization"])
+    writer.writerow(["engine", results[0].parameter, "cycle", "nucleus", "polarization", "stderr"])
     for res in results:
         for i, value in enumerate(res.values):
             for c in range(res.cycles):
@@ -72,6 +105,7 @@ def sweep_csv(results: list[SweepResult]) -> str:
                             c + 1,
                             label,
                             f"{res.polarization[i, c, j]:.12g}",
+                            "" if res.stderr is None else f"{res.stderr[i, c, j]:.6g}",
                         ]
                     )
     return buf.getvalue()
@@ -105,7 +139,7 @@ def _pyplot():
 def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
     """P_j vs the swept value, one panel per nucleus, one line per cycle, a-priori lines dashed."""
     plt = _pyplot()
-    unit, scale = axis_unit(result.parameter)
+    _, scale = axis_unit(result.parameter)
     n = len(result.nuclei)
     fig, axes = plt.subplots(n, 1, figsize=(7, 1.9 * n + 0.8), sharex=True, squeeze=False)
     colours = plt.cm.viridis(np.linspace(0.1, 0.9, result.cycles))
@@ -129,10 +163,14 @@ def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
             )
         ax.set_ylabel(f"P({label})")
         ax.axhline(0, color="0.7", lw=0.6)
-    axes[-1, 0].set_xlabel(f"{result.parameter} [{unit}]" if unit else result.parameter)
-    fig.legend(loc="upper right", fontsize=7, ncol=2)
-    fig.suptitle(f"Nuclear polarization vs {result.parameter} ({result.engine} engine)")
-    fig.tight_layout(rect=(0, 0, 0.82, 0.97))
+    axes[-1, 0].set_xlabel(axis_label(result.parameter))
+    fig.suptitle(
+        f"Nuclear polarization vs {_SYMBOLS.get(result.parameter, result.parameter)} "
+        f"({result.engine} engine)"
+    )
+    fig.tight_layout(rect=(0, 0, 0.80, 0.96))
+    # beside the panels, below the title: the legend covers neither
+    fig.legend(loc="upper left", bbox_to_anchor=(0.81, 0.93), fontsize=8)
     return fig
 
 
@@ -181,7 +219,8 @@ def buildup_figure(
     ax.set_ylabel("P (signed)")
     ax.set_ylim(-1.05, 1.05)
     ax.set_title(
-        f"Build-up at {result.parameter} = {format_value(result.parameter, result.values[point])}"
+        f"Build-up at {_SYMBOLS.get(result.parameter, result.parameter)} = "
+        f"{format_value(result.parameter, result.values[point])}"
     )
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     fig.tight_layout()
@@ -191,7 +230,7 @@ def buildup_figure(
 def comparison_figure(results: list[SweepResult], cycle: int = -1):
     """Final-cycle spectra of several engines: exact solid, trotter dotted, noisy dashed."""
     plt = _pyplot()
-    unit, scale = axis_unit(results[0].parameter)
+    _, scale = axis_unit(results[0].parameter)
     fig, ax = plt.subplots(figsize=(7, 4))
     for res in results:
         style = ENGINE_STYLES.get(res.engine, "-.")
@@ -201,7 +240,7 @@ def comparison_figure(results: list[SweepResult], cycle: int = -1):
             if res.stderr is not None:
                 err = res.stderr[:, cycle, j]
                 ax.fill_between(x, y - err, y + err, color=f"C{j}", alpha=0.15, lw=0)
-    ax.set_xlabel(f"{results[0].parameter} [{unit}]" if unit else results[0].parameter)
+    ax.set_xlabel(axis_label(results[0].parameter))
     ax.set_ylabel(f"P after cycle {results[0].cycles if cycle == -1 else cycle + 1}")
     ax.legend(fontsize=7, ncol=2)
     ax.set_title("Engines compared")
@@ -239,9 +278,14 @@ def budget_lines(data: dict) -> list[str]:
     q = data["qubits"]
     lines = [
         f"processor {proc['name']} ({proc['num_qubits']} qubits, {proc['native_gates']}); "
-        f"layout: {data['layout']['method']} {data['layout']['two_qubit_by_method']}",
-        f"NV on qubit {q['nv']}, nuclei on {q['nuclei_initial']} (after the program: "
-        f"{q['nuclei_final']})",
+        f"layout: {data['layout']['method']} (2q gates by candidate: "
+        + ", ".join(f"{k} {v}" for k, v in data["layout"]["two_qubit_by_method"].items())
+        + ")",
+        f"NV on qubit {q['nv']} (after the program: {q['nv_final']}), nuclei on "
+        + ", ".join(map(str, q["nuclei_initial"]))
+        + " (after the program: "
+        + ", ".join(map(str, q["nuclei_final"]))
+        + ")",
     ]
     rows = [
         [label] + [_cell(key, data[part][key], pat) for part in ("per_cycle", "total")]
