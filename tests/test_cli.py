@@ -199,6 +199,13 @@ def test_run_with_processor_compares_noisy_to_exact(tmp_path, capsys):
     # the Trotter error of this coarse program (12 steps) is flagged, in both places
     assert any("Trotter error" in w for w in report["warnings"])
     assert report["budget"]["trotter_error"] == report["trotter_error"]
+    # the report echoes the whole validated scenario, every processor figure included
+    settings = report["scenario"]["settings"]
+    assert settings["processor"]["error_reset"] == 1e-3
+    assert settings["processor"]["error_readout"] == 1e-2
+    assert settings["protocol"]["kind"] == "spin-lock" and settings["trotter"]["steps"] == 12
+    assert {"noise", "imperfections", "mapping", "typical", "sweep", "system"} <= set(settings)
+    assert report["scenario"]["dnpqc_version"]
     assert "warnings (" in text and report["warnings"][0] in text
 
 

@@ -15,7 +15,7 @@ from .processor import processor_for_spec
 from .protocols import expected_resonances
 from .report import count_of, format_value
 from .results import SweepResult, best_common, peaks, saturation
-from .scenario import Scenario
+from .scenario import Scenario, dnpqc_version, scenario_settings
 from .store import ResultsStore
 from .sweep import run_engines
 from .verdicts import best_common_lines, compare_to_exact, run_warnings, saturation_lines
@@ -97,6 +97,8 @@ class RunOutcome:
             "scenario": {
                 "name": sc.name,
                 "digest": sc.digest,
+                "dnpqc_version": dnpqc_version(),
+                "settings": scenario_settings(sc),
                 "protocol": sc.protocol.kind,
                 "parameter": sc.sweep.parameter,
                 "field_t": sc.system.field_t,

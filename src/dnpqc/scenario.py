@@ -9,8 +9,8 @@ from __future__ import annotations
 import hashlib
 import math
 import tomllib
-from dataclasses import dataclass, field, replace
-from importlib import resources
+from dataclasses import asdict, dataclass, field, replace
+from importlib import metadata, resources
 from pathlib import Path
 from typing import Any
 
@@ -125,6 +125,22 @@ class Scenario:
             steps=self.trotter.steps,
             pulse_steps=self.trotter.pulse_steps,
         )
+
+
+def scenario_settings(scenario: Scenario) -> dict[str, object]:
+    """The whole validated scenario as JSON-ready data (every field of every part, in SI
+    units, with the protocol's kind), so that a report can be repeated from its echo."""
+    data = asdict(scenario)
+    data["protocol"] = {"kind": scenario.protocol.kind, **data["protocol"]}
+    return data
+
+
+def dnpqc_version() -> str:
+    """The installed dnpqc version ("unknown" when running from a bare source tree)."""
+    try:
+        return metadata.version("dnpqc")
+    except metadata.PackageNotFoundError:
+        return "unknown"
 
 
 class _Table:
