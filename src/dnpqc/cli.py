@@ -118,7 +118,8 @@ def _scenario(path: str | None) -> Scenario:
     return demo_scenario() if path is None else load_scenario(path)
 
 
-def _progress(total: int, desc: str) -> tqdm:
+def _progress(total: int | None, desc: str) -> tqdm:
+    """A progress bar on a terminal (stderr), nothing otherwise; `total` None: a counter."""
     return tqdm(total=total, desc=desc, unit="pt", disable=not sys.stderr.isatty(), leave=False)
 
 
@@ -255,9 +256,20 @@ def _cmd_budget(args) -> int:
     if compared:
         data["compare"] = codesign.compare_processors(scenario, compared)
     if args.target_error is not None:
-        data["steps_advice"] = codesign.steps_advice(scenario, processor, args.target_error)
+        with _progress(None, "step advice") as bar:
+
+            def measured(steps: int) -> None:
+                bar.set_postfix_str(f"{steps} steps")
+                bar.update(1)
+
+            data["steps_advice"] = codesign.steps_advice(
+                scenario, processor, args.target_error, on_step=measured
+            )
     if args.scaling:
-        data["scaling"] = codesign.scaling_table(scenario, processor)
+        with _progress(4 * 12, "scaling") as bar:  # the default 4 graphs × 1..12 nuclei
+            data["scaling"] = codesign.scaling_table(
+                scenario, processor, on_step=lambda: bar.update(1)
+            )
     data["warnings"] = verdicts.budget_warnings(data)
     if args.json:
         report.write_json(Path(args.json), data)

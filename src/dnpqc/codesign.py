@@ -14,6 +14,7 @@ and a cycle-propagator error ε changes a polarization by at most 2ε per cycle.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
@@ -113,13 +114,18 @@ def program_budget(scenario: Scenario, processor: Processor) -> dict[str, object
 
 
 def steps_advice(
-    scenario: Scenario, processor: Processor, target_error: float, max_steps: int = 1024
+    scenario: Scenario,
+    processor: Processor,
+    target_error: float,
+    max_steps: int = 1024,
+    on_step: Callable[[int], None] | None = None,
 ) -> dict[str, object]:
     """Smallest steps per cycle with Trotter error ≤ target, its cost, and the optimum steps.
 
     Candidates double from 2; the crossing is refined by bisection and checked at 1.1× and 1.25×
     the result (else the ladder value is kept). The optimum minimises the
     total error estimate `trotter_error + (1 - success_estimate)` over the doubling ladder.
+    `on_step(steps)` reports each step count whose Trotter error has been measured.
     """
     rows = []
     errors: dict[int, float] = {}
@@ -127,6 +133,8 @@ def steps_advice(
     def error(steps: int) -> float:
         if steps not in errors:
             errors[steps] = float(trotter_error(with_steps(scenario, steps))["value"])
+            if on_step is not None:
+                on_step(steps)
         return errors[steps]
 
     steps = 2
@@ -202,13 +210,15 @@ def scaling_table(
     kinds: tuple[str, ...] = ("line", "grid", "heavy-hex", "star"),
     max_nuclei: int = 12,
     probe_steps: int = 4,
+    on_step: Callable[[], None] | None = None,
 ) -> dict[str, object]:
     """Two-qubit gates per cycle vs number of nuclei on each graph kind, with fitted growth.
 
     The cluster is NV-centric (nuclei coupled to the NV only, no dipolar pairs). Counts are taken
     from a program of `probe_steps` steps and scaled to the scenario's steps per cycle. Growth:
     the slope of log(count) against log(n) over the larger half of n (the asymptotic exponent),
-    and the two-qubit gates each added nucleus costs there.
+    and the two-qubit gates each added nucleus costs there. `on_step()` reports each
+    (graph, n) done.
     """
     n_values = list(range(1, max_nuclei + 1))
     table: dict[str, list[float]] = {}
@@ -226,6 +236,8 @@ def scaling_table(
                 with_steps(probe, probe_steps), processor.with_topology(_graph_for(kind, n + 1))
             )
             counts.append(budget["per_cycle"]["two_qubit"] * scenario.trotter.steps / probe_steps)
+            if on_step is not None:
+                on_step()
         table[kind] = counts
     upper = slice(len(n_values) // 2, None)
     growth = {
