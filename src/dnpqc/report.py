@@ -141,18 +141,16 @@ def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
     plt = _pyplot()
     _, scale = axis_unit(result.parameter)
     n = len(result.nuclei)
-    fig, axes = plt.subplots(n, 1, figsize=(7, 1.9 * n + 0.8), sharex=True, squeeze=False)
+    fig, axes = plt.subplots(n, 1, figsize=(8, 1.9 * n + 0.8), sharex=True, squeeze=False)
     colours = plt.cm.viridis(np.linspace(0.1, 0.9, result.cycles))
     x = result.values * scale
     for j, (ax, label) in enumerate(zip(axes[:, 0], result.nuclei, strict=True)):
         for c in range(result.cycles):
-            ax.plot(
-                x,
-                result.polarization[:, c, j],
-                color=colours[c],
-                lw=1.2,
-                label=f"cycle {c + 1}" if j == 0 else None,
-            )
+            y = result.polarization[:, c, j]
+            ax.plot(x, y, color=colours[c], lw=1.2, label=f"cycle {c + 1}" if j == 0 else None)
+            if result.stderr is not None:  # sampling engines: ± one standard error
+                err = result.stderr[:, c, j]
+                ax.fill_between(x, y - err, y + err, color=colours[c], alpha=0.2, lw=0)
         for k, v in enumerate(resonances.get(label, [])):
             ax.axvline(
                 v * scale,
@@ -168,9 +166,9 @@ def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
         f"Nuclear polarization vs {_SYMBOLS.get(result.parameter, result.parameter)} "
         f"({result.engine} engine)"
     )
-    fig.tight_layout(rect=(0, 0, 0.80, 0.96))
+    fig.tight_layout(rect=(0, 0, 0.76, 0.96))
     # beside the panels, below the title: the legend covers neither
-    fig.legend(loc="upper left", bbox_to_anchor=(0.81, 0.93), fontsize=8)
+    fig.legend(loc="upper left", bbox_to_anchor=(0.77, 0.93), fontsize=8)
     return fig
 
 
@@ -197,12 +195,14 @@ def buildup_figure(
             fit = fits[res.engine][label]
             curve = res.polarization[point, :, j]
             sign = 1.0 if curve[-1] >= 0 else -1.0
-            ax.plot(
+            ax.errorbar(
                 cycles,
                 curve,
-                style,
+                yerr=None if res.stderr is None else res.stderr[point, :, j],
+                fmt=style,
                 marker="o",
                 ms=3,
+                capsize=2,
                 color=f"C{j}",
                 label=f"{label} {res.engine} (|P|sat {fit['saturation']:.2f})",
             )
