@@ -48,11 +48,14 @@ def test_run_writes_report_and_summary(small, tmp_path, capsys):
         assert (out / name).stat().st_size > 0
     report = json.loads((out / "report.json").read_text())
     assert set(report["engines"]) == {"exact", "trotter"}
-    assert report["trotter_error"] < 0.05
+    # one Trotter error record, the same shape as `dnpqc budget` writes
+    assert set(report["trotter_error"]) == {"value", "method", "points"}
+    assert report["trotter_error"]["value"] < 0.05 and report["trotter_error"]["points"] == 8
+    assert report["warnings"] == []
     peaks = report["analysis"]["exact"]["peaks"]
     assert set(peaks) == {"C1", "C2"}
     lines = (out / "sweep.csv").read_text().splitlines()
-    assert lines[0] == "engine,rabi_hz,cycle,nucleus,polarization"
+    assert lines[0] == "engine,rabi_hz,cycle,nucleus,polarization,stderr"
     assert len(lines) == 1 + 2 * 8 * 3 * 2
     text = capsys.readouterr().out
     assert "best common rabi_hz" in text and "report:" in text
@@ -119,7 +122,15 @@ def test_budget_json_and_table(small, tmp_path, capsys):
     ]
     assert main(argv) == 0
     data = json.loads(path.read_text())
-    for key in ("processor", "qubits", "per_cycle", "total", "trotter_error", "compare"):
+    for key in (
+        "processor",
+        "qubits",
+        "per_cycle",
+        "total",
+        "trotter_error",
+        "compare",
+        "warnings",
+    ):
         assert key in data
     for part in ("per_cycle", "total"):
         assert {
@@ -175,11 +186,27 @@ def test_run_with_processor_compares_noisy_to_exact(tmp_path, capsys):
     out = tmp_path / "out"
     assert main(["run", str(path), "--out", str(out)]) == 0
     report = json.loads((out / "report.json").read_text())
-    assert set(report["engines"]) == {"exact", "trotter", "noisy"}
+    assert set(report["engines"]) == {"exact", "trotter", "noisy", "noisy-baseline"}
     noisy = next(c for c in report["comparison"] if c["engine"] == "noisy")
-    assert set(noisy["per_nucleus"]["C1"]) == {"peak", "shift", "contrast_ratio", "found"}
-    assert "peaks within the sweep resolution" in noisy["verdict"]
-    assert noisy["verdict"] in capsys.readouterr().out
+    assert [c["engine"] for c in report["comparison"]] == ["trotter", "noisy"]
+    assert {"peak", "shift", "contrast_ratio", "found", "signs_agree", "at_edge"} <= set(
+        noisy["per_nucleus"]["C1"]
+    )
+    assert "peaks found within the sweep resolution" in noisy["verdict"]
+    assert "noisy-baseline" in noisy["baseline"]
+    text = capsys.readouterr().out
+    assert noisy["verdict"] in text
+    # the Trotter error of this coarse program (12 steps) is flagged, in both places
+    assert any("Trotter error" in w for w in report["warnings"])
+    assert report["budget"]["trotter_error"] == report["trotter_error"]
+    # the report echoes the whole validated scenario, every processor figure included
+    settings = report["scenario"]["settings"]
+    assert settings["processor"]["error_reset"] == 1e-3
+    assert settings["processor"]["error_readout"] == 1e-2
+    assert settings["protocol"]["kind"] == "spin-lock" and settings["trotter"]["steps"] == 12
+    assert {"noise", "imperfections", "mapping", "typical", "sweep", "system"} <= set(settings)
+    assert report["scenario"]["dnpqc_version"]
+    assert "warnings (" in text and report["warnings"][0] in text
 
 
 def test_sweep_noisy_engine(small, tmp_path):

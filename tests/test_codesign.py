@@ -47,7 +47,10 @@ def test_bound_shrinks_at_the_order_rate(three_nuclei):
 
 def test_steps_advice_meets_target():
     sc = parse_scenario(THREE_NUCLEI.replace("count = 3", "count = 1"))
-    advice = steps_advice(sc.compile_job(), make_processor({"topology": "grid:3x3"}), 0.01)
+    seen = []
+    processor = make_processor({"topology": "grid:3x3"})
+    advice = steps_advice(sc.compile_job(), processor, 0.01, on_step=seen.append)
+    assert {r["steps"] for r in advice["ladder"]} <= set(seen)  # progress of every measurement
     best = advice["smallest"]
     assert best["trotter_error"] <= 0.01
     assert best["steps"] <= advice["ladder"][-1]["steps"]

@@ -32,7 +32,7 @@ from dnpqc.processor import make_processor
 PROC = make_processor(
     {
         "topology": "line:2",
-        "native_gates": "cz+rz+sx+x",
+        "native_gates": "cz+rz+sx+x",  # the idle test prepares |1> with a native X
         "t1_s": 20e-6,
         "t2_s": 30e-6,
         "error_1q": 0.0,

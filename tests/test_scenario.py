@@ -214,6 +214,16 @@ PULSED_BAD = [
         "`drive.block\\[0\\].axis` must be one of x, y, -x, -y",
     ),
     (
+        "waits not summing to one",
+        lambda t: _edit(
+            t,
+            'protocol = "pulsed"',
+            'protocol = "pulsed"\nsequence = "custom"\n'
+            'block = [{angle_deg = 90.0, axis = "x"}, {wait = 0.5}, {wait = 0.25}]',
+        ),
+        "waits are fractions of the block length `drive.tau_s` and must sum to 1, got 0.75",
+    ),
+    (
         "pulses longer than tau",
         lambda t: _edit(t, "[cycle]", "pulse_rabi_hz = 1e5\n[cycle]"),
         "too short for finite pulses",

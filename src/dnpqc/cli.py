@@ -10,9 +10,10 @@ from pathlib import Path
 
 from tqdm import tqdm
 
-from . import codesign, output, qasm, report
+from . import codesign, output, qasm, report, verdicts
 from .budget import gate_budget
 from .engines import ENGINE_ALIASES, ENGINES, engine_name
+from .engines.noisy import BASELINE_ENGINE
 from .errors import RunError, ScenarioError
 from .job import RunOutcome, run_scenario, scenario_processor, scenario_programs, simulate
 from .limits import DEFAULT_MAX_WORK, check_program_size, check_work
@@ -97,7 +98,8 @@ def _parser() -> argparse.ArgumentParser:
         "--engines",
         default=None,
         help="comma-separated engines (default: exact,trotter, plus noisy when the "
-        "scenario has a [processor] table)",
+        "scenario has a [processor] table; noisy brings its zero-transfer baseline "
+        "noisy-baseline)",
     )
     budget = sub.add_parser("budget", help="gate budget of the program on a processor")
     budget.add_argument("scenario", help="scenario TOML file")
@@ -167,8 +169,8 @@ def _terminal_columns(stream) -> int:
     return columns if columns > 0 else 80
 
 
-def _progress(total: int, desc: str, stream=None) -> tqdm:
-    """A progress bar on a terminal (stderr), nothing otherwise."""
+def _progress(total: int | None, desc: str, stream=None) -> tqdm:
+    """A progress bar on a terminal (stderr), nothing otherwise; `total` None: a counter."""
     stream = sys.stderr if stream is None else stream
     if not stream.isatty():
         return tqdm(total=total, disable=True)
@@ -234,6 +236,8 @@ def _cmd_run(args) -> int:
         raise ScenarioError("`--resume` and `--fresh` contradict each other; give one of them")
     scenario = _scenario(args.scenario)
     engines = _run_engines(args.engines, scenario)
+    if "noisy" in engines and BASELINE_ENGINE not in engines:
+        engines += (BASELINE_ENGINE,)  # the comparison subtracts the measured artefact
     out = _check_run_destination(args, scenario)
     workers = _workers(args.workers)
     if args.scheduler is not None:
@@ -373,13 +377,25 @@ def _cmd_budget(args) -> int:
     if compared:
         data["compare"] = codesign.compare_processors(programs, compared)
     if args.target_error is not None:
-        data["steps_advice"] = codesign.steps_advice(job, processor, args.target_error)
+        with _progress(None, "step advice") as bar:
+
+            def measured(steps: int) -> None:
+                bar.set_postfix_str(f"{steps} steps")
+                bar.update(1)
+
+            data["steps_advice"] = codesign.steps_advice(
+                job, processor, args.target_error, on_step=measured
+            )
     if args.scaling:
-        data["scaling"] = codesign.scaling_table(job, processor)
+        with _progress(4 * 12, "scaling") as bar:  # the default 4 graphs × 1..12 nuclei
+            data["scaling"] = codesign.scaling_table(job, processor, on_step=lambda: bar.update(1))
+    data["warnings"] = verdicts.budget_warnings(data)
     if destination is not None:
         output.write_json(destination, data)
     for line in report.budget_lines(data):
         print(output.one_line(line))
+    for warning in data["warnings"]:
+        print(output.one_line(f"! {warning}"))
     return 0
 
 

@@ -1,12 +1,13 @@
 """Co-design views: the Trotter error, Trotter-step advice, processors side by side, scaling.
 
 Errors and costs come from `strategy.py` (one definition of the approximation error; costs from
-one-cycle probe programs mapped onto each processor).
+probe programs mapped onto each processor).
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
@@ -15,6 +16,7 @@ from .budget import costliest_budget, gate_budget
 from .model import Nucleus, SpinSystem
 from .processor import Processor, coupling_graph
 from .program import CompileJob, Program, compile_workload, map_onto
+from .results import SweepResult
 from .strategy import Programs, probe_cost, strategy_error
 
 
@@ -24,6 +26,16 @@ def trotter_error(job: CompileJob, trotter=None) -> dict[str, object]:
     if trotter.weak_every is None:
         trotter = replace(trotter, weak_every=1)
     return strategy_error(job.workload, "trotter", trotter).to_json()
+
+
+def measured_trotter_error(exact: SweepResult, circuit: SweepResult) -> dict[str, object]:
+    """The Trotter error record {value, method, points} of a run: max |P_circuit - P_exact| over
+    every point, cycle and nucleus the two results share (same shape as `trotter_error`)."""
+    return {
+        "value": float(np.max(np.abs(exact.polarization - circuit.polarization))),
+        "method": "measured",
+        "points": len(exact.values),
+    }
 
 
 def program_budget(program: Program) -> dict[str, object]:
@@ -36,14 +48,19 @@ def program_budget(program: Program) -> dict[str, object]:
 
 
 def steps_advice(
-    job: CompileJob, processor: Processor, target_error: float, max_steps: int = 1024
+    job: CompileJob,
+    processor: Processor,
+    target_error: float,
+    max_steps: int = 1024,
+    on_step: Callable[[int], None] | None = None,
 ) -> dict[str, object]:
     """Smallest Trotter steps per cycle with error ≤ target, its cost, and the optimum steps.
 
     Candidates double from 2; the crossing is refined by bisection and checked at 1.1× and 1.25×
     the result (else the ladder value is kept). The optimum minimises the total error estimate
-    `trotter_error + (1 - success_estimate)` over the doubling ladder. Costs come from one-cycle
-    probes (see `strategy.probe_cost`).
+    `trotter_error + (1 - success_estimate)` over the doubling ladder. Costs come from probe
+    programs (see `strategy.probe_cost`).
+    `on_step(steps)` reports each step count whose Trotter error has been measured.
     """
     errors: dict[int, float] = {}
     base = job.trotter if job.trotter.weak_every is not None else replace(job.trotter, weak_every=1)
@@ -54,6 +71,8 @@ def steps_advice(
     def error(steps: int) -> float:
         if steps not in errors:
             errors[steps] = strategy_error(job.workload, "trotter", settings(steps)).value
+            if on_step is not None:
+                on_step(steps)
         return errors[steps]
 
     def row(steps: int) -> dict[str, object]:
@@ -124,13 +143,15 @@ def scaling_table(
     kinds: tuple[str, ...] = ("line", "grid", "heavy-hex", "star"),
     max_nuclei: int = 12,
     probe_steps: int = 4,
+    on_step: Callable[[], None] | None = None,
 ) -> dict[str, object]:
     """Two-qubit gates per cycle vs number of nuclei on each graph kind, with fitted growth.
 
     The cluster is NV-centric (nuclei coupled to the NV only, no dipolar pairs). Counts are taken
     from a program of `probe_steps` steps and scaled to the scenario's steps per cycle. Growth:
     the slope of log(count) against log(n) over the larger half of n (the asymptotic exponent),
-    and the two-qubit gates each added nucleus costs there.
+    and the two-qubit gates each added nucleus costs there. `on_step()` reports each
+    (graph, n) done.
     """
     n_values = list(range(1, max_nuclei + 1))
     table: dict[str, list[float]] = {}
@@ -153,6 +174,8 @@ def scaling_table(
             )
             budget = gate_budget(mapped.mapped[0])
             counts.append(budget["per_cycle"]["two_qubit"] * job.trotter.steps / probe_steps)
+            if on_step is not None:
+                on_step()
         table[kind] = counts
     upper = slice(len(n_values) // 2, None)
     growth = {

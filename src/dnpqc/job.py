@@ -5,18 +5,22 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from .codesign import compare_processors, program_budget
-from .engines import EngineOptions, engine_name, simulate_program
+import numpy as np
+
+from .codesign import compare_processors, measured_trotter_error, program_budget
+from .engines import NOISY_ENGINES, EngineOptions, engine_name, simulate_program
+from .engines.noisy import BASELINE_ENGINE
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import Processor, make_processor, processor_for_spec
 from .program import Program, Workload
 from .protocols import expected_resonances
-from .report import format_value
-from .results import SweepResult, best_common, max_difference, peaks, saturation
-from .scenario import Scenario
+from .report import count_of, format_value
+from .results import SweepResult, best_common, peaks, saturation
+from .scenario import Scenario, dnpqc_version, scenario_settings
 from .store import ResultsStore
 from .strategy import Programs, StrategyRow
 from .sweep import run_engines
+from .verdicts import best_common_lines, compare_to_exact, run_warnings, saturation_lines
 
 #: Another strategy is "cheaper" when it needs at most this fraction of the two-qubit gates per
 #: cycle at an approximation error no larger than max(the chosen one's, CHEAPER_ERROR_FLOOR).
@@ -40,15 +44,15 @@ def scenario_programs(scenario: Scenario, spec: str | None = None) -> Programs:
 def engine_targets(
     scenario: Scenario, engines: tuple[str, ...], programs: Programs | None = None
 ) -> dict[str, Program | Workload]:
-    """What each engine runs: the logical program (trotter), the mapped one (noisy), or the
-    workload (exact, typical); programs compiled once, from `programs`."""
+    """What each engine runs: the logical program (trotter), the mapped one (noisy and its
+    baseline), or the workload (exact, typical); programs compiled once, from `programs`."""
     programs = programs or scenario_programs(scenario)
     targets: dict[str, Program | Workload] = {}
     for name in engines:
         engine = engine_name(name)
         if engine == "trotter":
             targets[engine] = programs.logical()
-        elif engine == "noisy":
+        elif engine in NOISY_ENGINES:
             targets[engine] = programs.mapped()
         else:
             targets[engine] = scenario.workload()
@@ -120,49 +124,40 @@ class RunOutcome:
         }
 
     def comparison(self, engine: str) -> dict[str, object]:
-        """`engine` against the exact reference: peak shifts, contrast, best value, verdict.
-
-        Peaks are taken on the baseline-subtracted signal |P - median| of both engines, so the
-        relaxation bias of a noisy processor does not count as a shift. A peak is found when it
-        lies within one grid step of the exact peak; contrast is the ratio of the peak heights.
-        """
+        """`engine` against the exact reference (see `verdicts.compare_to_exact`): signed P
+        minus the zero-transfer baseline of the same noisy program, edge peaks never found."""
         ref, other = self.analysis(self.reference.engine), self.analysis(engine)
-        ref_peaks = peaks(self.reference, baseline=True)
-        other_peaks = peaks(self.results[engine], baseline=True)
-        values = self.scenario.sweep.values
-        step = abs(values[1] - values[0]) if len(values) > 1 else 0.0
-        per: dict[str, dict[str, float | bool]] = {}
-        for label, peak in ref_peaks.items():
-            mine = other_peaks[label]
-            shift = mine["value"] - peak["value"]
-            per[label] = {
-                "peak": mine["value"],
-                "shift": shift,
-                "contrast_ratio": mine["polarization"] / peak["polarization"]
-                if peak["polarization"] > 0
-                else float("nan"),
-                "found": abs(shift) <= step,
-            }
-        found = sum(p["found"] for p in per.values())
-        par = self.scenario.sweep.parameter
-        verdict = (
-            f"{engine}: {found} of {len(per)} peaks within the sweep resolution "
-            f"({format_value(par, step)}) of the exact peaks"
+        baseline = self.results.get(BASELINE_ENGINE) if engine == "noisy" else None
+        out = compare_to_exact(
+            self.reference,
+            self.results[engine],
+            baseline=baseline,
+            best_common=(ref["best_common"]["value"], other["best_common"]["value"]),
         )
-        return {
-            "engine": engine,
-            "resolution": step,
-            "per_nucleus": per,
-            "best_common": other["best_common"]["value"],
-            "best_common_shift": other["best_common"]["value"] - ref["best_common"]["value"],
-            "saturation": other["saturation"]["mean_saturation"],
-            "all_found": found == len(per),
-            "verdict": verdict,
-        }
+        out["saturation"] = other["saturation"]["mean_saturation"]
+        return out
 
     def comparisons(self) -> list[dict[str, object]]:
         ref = self.reference.engine
-        return [self.comparison(e) for e in self.results if e != ref and ref == "exact"]
+        return [
+            self.comparison(e)
+            for e in self.results
+            if e not in (ref, BASELINE_ENGINE) and ref == "exact"
+        ]
+
+    def trotter_error(self) -> dict[str, object] | None:
+        """{value, method, points} over every point of the run (with exact and trotter)."""
+        if "exact" in self.results and "trotter" in self.results:
+            return measured_trotter_error(self.results["exact"], self.results["trotter"])
+        return None
+
+    def warnings(self) -> list[str]:
+        """What a planner must not miss (`verdicts.run_warnings`), plus unfound noisy peaks."""
+        error = self.trotter_error()
+        value = error["value"] if error else None
+        out = run_warnings(self.scenario, self.reference, trotter_error=value)
+        out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
+        return out
 
     def compiler(self) -> dict[str, object]:
         """The compiled (logical) program: strategy, settings, layering, gate counts."""
@@ -213,6 +208,8 @@ class RunOutcome:
             "scenario": {
                 "name": sc.name,
                 "digest": sc.digest,
+                "dnpqc_version": dnpqc_version(),
+                "settings": scenario_settings(sc),
                 "protocol": sc.protocol.kind,
                 "parameter": sc.sweep.parameter,
                 "field_t": sc.system.field_t,
@@ -243,14 +240,17 @@ class RunOutcome:
             "analysis": {name: self.analysis(name) for name in self.results},
             "compiler": self.compiler(),
         }
-        if "exact" in self.results and "trotter" in self.results:
-            out["trotter_error"] = max_difference(self.results["exact"], self.results["trotter"])
+        if self.trotter_error() is not None:
+            out["trotter_error"] = self.trotter_error()
         if self.comparisons():
             out["comparison"] = self.comparisons()
         if self.budget is not None:
             out["budget"] = self.budget
+            if self.trotter_error() is not None:
+                out["budget"] = {**self.budget, "trotter_error": self.trotter_error()}
         if self.compare:
             out["compare"] = self.compare
+        out["warnings"] = self.warnings()
         return out
 
     def summary_lines(self) -> list[str]:
@@ -260,31 +260,31 @@ class RunOutcome:
         res = self.reference
         ana = self.analysis(res.engine)
         lines = [
-            f"scenario {sc.name!r}: {sc.protocol.kind}, {sc.system.num_nuclei} nuclei, "
-            f"{len(sc.sweep.values)} points of {par}, {sc.cycles} cycles ({res.engine} engine)",
+            f"scenario {sc.name!r}: {sc.protocol.kind}, "
+            f"{count_of(sc.system.num_nuclei, 'nucleus', 'nuclei')}, "
+            f"{count_of(len(sc.sweep.values), 'point')} of {par}, "
+            f"{count_of(sc.cycles, 'cycle')} ({res.engine} engine)",
         ]
         expected = self.resonances()
-        for label, peak in ana["peaks"].items():
+        for j, (label, peak) in enumerate(ana["peaks"].items()):
             guide = ", ".join(format_value(par, v) for v in expected[label]) or "-"
+            spread = ""
+            if res.stderr is not None:  # sampling engines: the standard error at the peak
+                i = int(np.argmin(np.abs(res.values - peak["value"])))
+                spread = f" ± {res.stderr[i, -1, j]:.3f}"
             lines.append(
                 f"  {label:>6}: peak at {format_value(par, peak['value'])}, "
-                f"|P| = {peak['polarization']:.3f} (a-priori: {guide})"
+                f"|P| = {peak['polarization']:.3f}{spread} (a-priori: {guide})"
             )
-        common = ana["best_common"]
-        lines.append(
-            f"  best common {par}: {format_value(par, common['value'])} "
-            f"(mean |P| {common['mean_polarization']:.3f}, worst {common['min_polarization']:.3f})"
-        )
-        sat = ana["saturation"]
-        note = " (extrapolated beyond the run)" if sat["extrapolated"] else ""
-        lines.append(
-            f"  saturation there: mean |P| -> {sat['mean_saturation']:.3f}; "
-            f"{sat['cycles']} cycles reach {sat['fraction']:.0%} of it{note}"
-        )
+        lines += best_common_lines(par, ana["best_common"])
+        lines += saturation_lines(ana["saturation"])
         lines.append(f"  program: {self.program.describe()}")
-        if "exact" in self.results and "trotter" in self.results:
-            err = max_difference(self.results["exact"], self.results["trotter"])
-            lines.append(f"  program error (max |P_program - P_exact|): {err:.2e}")
+        if self.trotter_error() is not None:
+            err = self.trotter_error()
+            lines.append(
+                f"  program error (max |P_program - P_exact|, {err['points']} points): "
+                f"{err['value']:.2e}"
+            )
         for comp in self.comparisons():
             if comp["engine"] == "trotter":
                 continue
@@ -309,6 +309,10 @@ class RunOutcome:
         note = self.cheaper_note()
         if note:
             lines.append(note)
+        warnings = self.warnings()
+        if warnings:
+            lines.append(f"  warnings ({len(warnings)}):")
+            lines += [f"  ! {w}" for w in warnings]
         return lines
 
 

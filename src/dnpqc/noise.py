@@ -22,6 +22,11 @@ engines save probabilities, so it is applied to them (and a `ReadoutError` is in
 measurements).
 
 `scale` multiplies every error rate and every relaxation rate (1/T1, 1/T2).
+
+Zero-transfer baseline (`without_transfer`): the same program with the NV left maximally mixed
+after each cycle's reset. Its gates and schedule are those of the program, but no polarization
+can move (the state I/d is invariant under every unitary), so whatever the nuclei show on a
+noisy processor is the processor's artefact (relaxation drives every qubit towards |0>, P = +1).
 """
 
 from __future__ import annotations
@@ -144,6 +149,22 @@ def noise_model(processor: Processor, region: tuple[int, ...], scale: float = 1.
 def readout_factor(processor: Processor, scale: float = 1.0) -> float:
     """Polarization scale (1 - 2e) of a symmetric readout error e."""
     return 1.0 - 2.0 * min(0.5, processor.error_readout * scale)
+
+
+def without_transfer(circuit: QuantumCircuit) -> QuantumCircuit:
+    """A copy with a fully depolarizing channel (ρ → I/2) after every reset past the
+    preparation (the first full-width barrier): the zero-transfer baseline program."""
+    out = circuit.copy_empty_like()
+    mix = depolarizing_error(1.0, 1).to_instruction()
+    barriers = 0
+    for inst in circuit.data:
+        out.append(inst)
+        name = inst.operation.name
+        if name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
+            barriers += 1
+        elif name == "reset" and barriers:
+            out.append(mix, inst.qubits)
+    return out
 
 
 def with_idle_relaxation(

@@ -254,15 +254,19 @@ def expected_resonances(
 ) -> dict[str, list[float]]:
     """A-priori resonances of each nucleus inside [lo, hi] of the swept `parameter`.
 
-    Spin-lock swept in Ω: the Hartmann–Hahn match Ω = ν̃ (Hartmann & Hahn 1962). Pulsed swept in
-    τ: τ = m/(2ν̃) for odd m (the PulsePol condition of Schwartz et al. 2018; for a custom block
-    it is only a guide). Other sweeps: none.
+    Spin-lock swept in Ω: the Hartmann–Hahn match Ω = ν̃ (Hartmann & Hahn 1962); swept in Δ at
+    fixed Ω: the effective field matches, sqrt(Ω² + Δ²) = ν̃, at both Δ = ±sqrt(ν̃² - Ω²). Pulsed
+    swept in τ: τ = m/(2ν̃) for odd m (the PulsePol condition of Schwartz et al. 2018; for a
+    custom block it is only a guide). Other sweeps: none.
     """
     out: dict[str, list[float]] = {}
     for j, nucleus in enumerate(system.nuclei):
         nu = nuclear_frequency_hz(system, j)
         if isinstance(protocol, SpinLock) and parameter == "rabi_hz":
             found = [nu]
+        elif isinstance(protocol, SpinLock) and parameter == "detuning_hz":
+            gap = nu**2 - protocol.rabi_hz**2
+            found = [-math.sqrt(gap), math.sqrt(gap)] if gap >= 0 else []
         elif isinstance(protocol, PulsedBlock) and parameter == "tau_s":
             m_max = int(2 * nu * hi) + 1
             found = [m / (2 * nu) for m in range(1, m_max + 1, 2)]

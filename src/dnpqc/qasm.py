@@ -22,6 +22,7 @@ from .mapping import MappedProgram
 from .output import one_line, write_text
 from .processor import build_target
 from .program import Program
+from .report import count_of
 from .trotter import cycle_label
 
 READOUT = "nuclei"
@@ -76,8 +77,8 @@ def header_lines(
     parameter = work.parameter
     lines = [
         f"dnpqc program for scenario {work.name!r} (content hash {work.digest}):",
-        f"  {work.protocol.kind}, {work.system.num_nuclei} nuclei, {work.cycles} cycles; "
-        f"strategy {program.describe()}.",
+        f"  {work.protocol.kind}, {count_of(work.system.num_nuclei, 'nucleus', 'nuclei')}, "
+        f"{count_of(work.cycles, 'cycle')}; strategy {program.describe()}.",
         "Model: H/h in Hz, U = exp(-2πi·H·t); NV qubit {|0> = m_s 0, |1> = m_s -1}, nuclei",
         "  |0> = spin up along B0; the nuclei start maximally mixed (H, CX to the NV, NV reset).",
         "  Readout bit j = nucleus j+1; its polarization is P = 1 - 2·mean(bit).",

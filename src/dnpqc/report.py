@@ -26,16 +26,49 @@ def axis_unit(parameter: str) -> tuple[str, float]:
     return "", 1.0
 
 
+#: Readable names of the swept keys for axis labels (cyclic frequencies as Ω/2π etc.).
+_SYMBOLS = {
+    "rabi_hz": "Ω/2π",
+    "detuning_hz": "Δ/2π",
+    "tau_s": "τ",
+    "interaction_time_s": "T",
+}
+
+#: Units a single value is written in, largest first: (suffix, threshold, unit, scale).
+_VALUE_UNITS = {
+    "_hz": ((1e6, "MHz", 1e-6), (0.0, "kHz", 1e-3)),
+    "_s": ((1.0, "s", 1.0), (1e-3, "ms", 1e3), (0.0, "µs", 1e6)),
+}
+
+
+def axis_label(parameter: str) -> str:
+    """Axis label of a swept key, e.g. "Ω/2π (kHz)" for rabi_hz, "τ (µs)" for tau_s."""
+    unit, _ = axis_unit(parameter)
+    name = _SYMBOLS.get(parameter, parameter)
+    return f"{name} ({unit})" if unit else name
+
+
 def format_value(parameter: str, value: float) -> str:
-    unit, scale = axis_unit(parameter)
-    return f"{value * scale:.4g} {unit}".strip()
+    """One value of a swept key in a readable unit: kHz or MHz, µs, ms or s."""
+    for suffix, units in _VALUE_UNITS.items():
+        if parameter.endswith(suffix):
+            for threshold, unit, scale in units:
+                if abs(value) >= threshold:
+                    return f"{value * scale:.4g} {unit}"
+    return f"{value:.4g}"
+
+
+def count_of(count: int, noun: str, plural: str | None = None) -> str:
+    """ "1 nucleus", "3 nuclei": a count with its noun in the right number."""
+    return f"{count} {noun if count == 1 else plural or noun + 's'}"
 
 
 def sweep_csv(results: list[SweepResult]) -> str:
-    """Long-format CSV: engine, swept value, cycle (1-based), nucleus, polarization."""
+    """Long-format CSV: engine, swept value, cycle (1-based), nucleus, polarization, and the
+    standard error of sampling engines (empty for the deterministic ones)."""
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(["engine", results[0].parameter, "cycle", "nucleus", "polarization"])
+    writer.writerow(["engine", results[0].parameter, "cycle", "nucleus", "polarization", "stderr"])
     for res in results:
         for i, value in enumerate(res.values):
             for c in range(res.cycles):
@@ -47,6 +80,7 @@ def sweep_csv(results: list[SweepResult]) -> str:
                             c + 1,
                             spreadsheet_cell(label),
                             f"{res.polarization[i, c, j]:.12g}",
+                            "" if res.stderr is None else f"{res.stderr[i, c, j]:.6g}",
                         ]
                     )
     return buf.getvalue()
@@ -78,20 +112,18 @@ def _plain_text(draw):
 def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
     """P_j vs the swept value, one panel per nucleus, one line per cycle, a-priori lines dashed."""
     plt = _pyplot()
-    unit, scale = axis_unit(result.parameter)
+    _, scale = axis_unit(result.parameter)
     n = len(result.nuclei)
-    fig, axes = plt.subplots(n, 1, figsize=(7, 1.9 * n + 0.8), sharex=True, squeeze=False)
+    fig, axes = plt.subplots(n, 1, figsize=(8, 1.9 * n + 0.8), sharex=True, squeeze=False)
     colours = plt.cm.viridis(np.linspace(0.1, 0.9, result.cycles))
     x = result.values * scale
     for j, (ax, label) in enumerate(zip(axes[:, 0], result.nuclei, strict=True)):
         for c in range(result.cycles):
-            ax.plot(
-                x,
-                result.polarization[:, c, j],
-                color=colours[c],
-                lw=1.2,
-                label=f"cycle {c + 1}" if j == 0 else None,
-            )
+            y = result.polarization[:, c, j]
+            ax.plot(x, y, color=colours[c], lw=1.2, label=f"cycle {c + 1}" if j == 0 else None)
+            if result.stderr is not None:  # sampling engines: ± one standard error
+                err = result.stderr[:, c, j]
+                ax.fill_between(x, y - err, y + err, color=colours[c], alpha=0.2, lw=0)
         for k, v in enumerate(resonances.get(label, [])):
             ax.axvline(
                 v * scale,
@@ -102,10 +134,14 @@ def spectrum_figure(result: SweepResult, resonances: dict[str, list[float]]):
             )
         ax.set_ylabel(f"P({label})")
         ax.axhline(0, color="0.7", lw=0.6)
-    axes[-1, 0].set_xlabel(f"{result.parameter} [{unit}]" if unit else result.parameter)
-    fig.legend(loc="upper right", fontsize=7, ncol=2)
-    fig.suptitle(f"Nuclear polarization vs {result.parameter} ({result.engine} engine)")
-    fig.tight_layout(rect=(0, 0, 0.82, 0.97))
+    axes[-1, 0].set_xlabel(axis_label(result.parameter))
+    fig.suptitle(
+        f"Nuclear polarization vs {_SYMBOLS.get(result.parameter, result.parameter)} "
+        f"({result.engine} engine)"
+    )
+    fig.tight_layout(rect=(0, 0, 0.76, 0.96))
+    # beside the panels, below the title: the legend covers neither
+    fig.legend(loc="upper left", bbox_to_anchor=(0.77, 0.93), fontsize=8)
     return fig
 
 
@@ -116,10 +152,14 @@ ENGINE_STYLES = {"exact": "-", "trotter": ":", "noisy": "--"}
 def buildup_figure(
     results: list[SweepResult], point: int, fits: dict[str, dict[str, dict[str, float]]]
 ):
-    """|P_j| vs cycle at sweep point `point` for each engine (exact solid, noisy dashed), with
-    the fitted saturation curves faint; `fits[engine][label]` as from `results.saturation`."""
+    """Signed P_j vs cycle at sweep point `point` for each engine (exact solid, noisy dashed),
+    with the fitted saturation curves faint, signed like the last cycle (the fit is of |P|);
+    `fits[engine][label]` as from `results.saturation`. A noisy nucleus whose sign differs
+    from the exact one shows as such."""
+    from matplotlib.ticker import MaxNLocator
+
     plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6.5, 4.2))
+    fig, ax = plt.subplots(figsize=(8.0, 4.2))
     result = results[0]
     cycles = np.arange(1, result.cycles + 1)
     fine = np.linspace(0, result.cycles, 200)
@@ -127,29 +167,36 @@ def buildup_figure(
         style = ENGINE_STYLES.get(res.engine, "-.")
         for j, label in enumerate(res.nuclei):
             fit = fits[res.engine][label]
-            ax.plot(
+            curve = res.polarization[point, :, j]
+            sign = 1.0 if curve[-1] >= 0 else -1.0
+            ax.errorbar(
                 cycles,
-                np.abs(res.polarization[point, :, j]),
-                style,
+                curve,
+                yerr=None if res.stderr is None else res.stderr[point, :, j],
+                fmt=style,
                 marker="o",
                 ms=3,
+                capsize=2,
                 color=f"C{j}",
-                label=f"{label} {res.engine} (sat. {fit['saturation']:.2f})",
+                label=f"{label} {res.engine} (|P|sat {fit['saturation']:.2f})",
             )
             ax.plot(
                 fine,
-                fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
+                sign * fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
                 color=f"C{j}",
                 lw=0.6,
                 alpha=0.5,
             )
+    ax.axhline(0.0, color="0.6", lw=0.5)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_xlabel("cycle")
-    ax.set_ylabel("|P|")
-    ax.set_ylim(0, 1.05)
+    ax.set_ylabel("P (signed)")
+    ax.set_ylim(-1.05, 1.05)
     ax.set_title(
-        f"Build-up at {result.parameter} = {format_value(result.parameter, result.values[point])}"
+        f"Build-up at {_SYMBOLS.get(result.parameter, result.parameter)} = "
+        f"{format_value(result.parameter, result.values[point])}"
     )
-    ax.legend(fontsize=6, ncol=2)
+    ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     fig.tight_layout()
     return fig
 
@@ -158,7 +205,7 @@ def buildup_figure(
 def comparison_figure(results: list[SweepResult], cycle: int = -1):
     """Final-cycle spectra of several engines: exact solid, trotter dotted, noisy dashed."""
     plt = _pyplot()
-    unit, scale = axis_unit(results[0].parameter)
+    _, scale = axis_unit(results[0].parameter)
     fig, ax = plt.subplots(figsize=(7, 4))
     for res in results:
         style = ENGINE_STYLES.get(res.engine, "-.")
@@ -168,7 +215,7 @@ def comparison_figure(results: list[SweepResult], cycle: int = -1):
             if res.stderr is not None:
                 err = res.stderr[:, cycle, j]
                 ax.fill_between(x, y - err, y + err, color=f"C{j}", alpha=0.15, lw=0)
-    ax.set_xlabel(f"{results[0].parameter} [{unit}]" if unit else results[0].parameter)
+    ax.set_xlabel(axis_label(results[0].parameter))
     ax.set_ylabel(f"P after cycle {results[0].cycles if cycle == -1 else cycle + 1}")
     ax.legend(fontsize=7, ncol=2)
     ax.set_title("Engines compared")
@@ -206,9 +253,14 @@ def budget_lines(data: dict) -> list[str]:
     q = data["qubits"]
     lines = [
         f"processor {proc['name']} ({proc['num_qubits']} qubits, {proc['native_gates']}); "
-        f"layout: {data['layout']['method']} {data['layout']['two_qubit_by_method']}",
-        f"NV on qubit {q['nv']}, nuclei on {q['nuclei_initial']} (after the program: "
-        f"{q['nuclei_final']})",
+        f"layout: {data['layout']['method']} (2q gates by candidate: "
+        + ", ".join(f"{k} {v}" for k, v in data["layout"]["two_qubit_by_method"].items())
+        + ")",
+        f"NV on qubit {q['nv']} (after the program: {q['nv_final']}), nuclei on "
+        + ", ".join(map(str, q["nuclei_initial"]))
+        + " (after the program: "
+        + ", ".join(map(str, q["nuclei_final"]))
+        + ")",
     ]
     rows = [
         [label] + [_cell(key, data[part][key], pat) for part in ("per_cycle", "total")]

@@ -58,11 +58,11 @@ def memory_budget_bytes() -> int:
 
 
 def format_bytes(count: float) -> str:
-    """`count` bytes in binary units; beyond 1024 EiB as a power of two (exact for any int)."""
-    units = ["B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"]
-    if count >= 1024**7:
-        return f"2^{int(count).bit_length() - 1} B"
-    k = min(len(units) - 1, int(math.log(max(count, 1), 1024)))
+    """Bytes in binary units up to YiB; beyond that as a power of two ("2^98 B")."""
+    units = ["B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB", "ZiB", "YiB"]
+    k = int(math.log(max(count, 1), 1024))
+    if k >= len(units):
+        return f"2^{math.log2(count):.0f} B"
     return f"{count / 1024**k:.3g} {units[k]}"
 
 

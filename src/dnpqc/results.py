@@ -1,8 +1,9 @@
 """Sweep results and the physics answers drawn from them.
 
-`polarization[point, cycle, nucleus]` is P_j = <Z_j> after cycle 1..count. The analysis works on
-the magnitude |P_j|: the transfer direction depends on the NV dressed state and the resonance
-order, the hyperpolarization yield does not.
+`polarization[point, cycle, nucleus]` is P_j = <Z_j> after cycle 1..count. Peaks, the best
+common value and saturation work on the magnitude |P_j|: the transfer direction depends on the
+NV dressed state and the resonance order, the hyperpolarization yield does not. Comparisons of
+engines (`verdicts.py`) keep the sign.
 """
 
 from __future__ import annotations
@@ -43,7 +44,7 @@ class SweepResult:
         return out
 
 
-def _refined_peak(values: np.ndarray, curve: np.ndarray) -> tuple[float, float]:
+def refined_peak(values: np.ndarray, curve: np.ndarray) -> tuple[float, float]:
     """Position and height of the maximum of `curve`, refined by a parabola through 3 points."""
     i = int(np.argmax(curve))
     if 0 < i < len(curve) - 1:
@@ -56,35 +57,36 @@ def _refined_peak(values: np.ndarray, curve: np.ndarray) -> tuple[float, float]:
     return float(values[i]), float(curve[i])
 
 
-def peaks(
-    result: SweepResult, cycle: int = -1, *, baseline: bool = False
-) -> dict[str, dict[str, float]]:
-    """Per nucleus: the swept value of largest |P| after `cycle` (index), and that |P|.
-
-    With `baseline`, the signal is |P - median over the sweep|: a constant offset (e.g. the
-    bias of qubit relaxation towards |0> on a noisy processor) then does not move the peaks.
-    """
-    pol = result.polarization[:, cycle, :]
-    if baseline:
-        pol = pol - np.median(pol, axis=0)
-    mags = np.abs(pol)
+def peaks(result: SweepResult, cycle: int = -1) -> dict[str, dict[str, float]]:
+    """Per nucleus: the swept value of largest |P| after `cycle` (index), and that |P|."""
+    mags = np.abs(result.polarization[:, cycle, :])
     out = {}
     for j, label in enumerate(result.nuclei):
-        value, height = _refined_peak(result.values, mags[:, j])
+        value, height = refined_peak(result.values, mags[:, j])
         out[label] = {"value": value, "polarization": height}
     return out
 
 
 def best_common(result: SweepResult, cycle: int = -1) -> dict[str, object]:
-    """The grid value that maximises the mean |P| over all nuclei after `cycle`."""
+    """The grid value that maximises the mean |P| over all nuclei after `cycle`, and the
+    worst-nucleus choice `maximin` (the grid value that maximises the smallest |P|)."""
     mags = np.abs(result.polarization[:, cycle, :])
     i = int(np.argmax(mags.mean(axis=1)))
+    k = int(np.argmax(mags.min(axis=1)))
     return {
+        "maximises": "mean |P| over the nuclei",
         "index": i,
         "value": float(result.values[i]),
         "mean_polarization": float(mags[i].mean()),
         "min_polarization": float(mags[i].min()),
         "per_nucleus": {label: float(mags[i, j]) for j, label in enumerate(result.nuclei)},
+        "maximin": {
+            "maximises": "the smallest |P| of any nucleus",
+            "index": k,
+            "value": float(result.values[k]),
+            "mean_polarization": float(mags[k].mean()),
+            "min_polarization": float(mags[k].min()),
+        },
     }
 
 
@@ -116,27 +118,42 @@ def cycles_to_fraction(rate: float, fraction: float = 0.9) -> int:
     return math.ceil(math.log(1.0 - fraction) / math.log(1.0 - rate) - 1e-12)
 
 
+#: Below this |P| a nucleus counts as not polarized at all.
+NO_TRANSFER = 1e-6
+
+
 def saturation(result: SweepResult, point: int, fraction: float = 0.9) -> dict[str, object]:
-    """Build-up at sweep point `point`: fitted saturation per nucleus and of the mean, and the
-    cycles needed to reach `fraction` of saturation (``extrapolated`` when beyond the run)."""
+    """Build-up at sweep point `point`: the fitted saturation level of each nucleus and the
+    cycles it needs to reach `fraction` of it (``extrapolated`` when beyond the run).
+
+    The headline `cycles` is that of the slowest polarized nucleus (`slowest`); a fit to the
+    mean |P| hides a slow nucleus behind fast ones, so it is kept only as `mean_*`.
+    """
     curves = np.abs(result.polarization[point])  # (cycles, nuclei)
     out: dict[str, object] = {"value": float(result.values[point]), "fraction": fraction}
-    per: dict[str, dict[str, float]] = {}
+    per: dict[str, dict[str, object]] = {}
     for j, label in enumerate(result.nuclei):
         p_sat, k = fit_buildup(curves[:, j])
+        n_cycles = cycles_to_fraction(k, fraction)
         per[label] = {
             "saturation": p_sat,
             "rate_per_cycle": k,
-            "cycles": cycles_to_fraction(k, fraction),
+            "cycles": n_cycles,
+            "extrapolated": n_cycles > result.cycles,
+            "polarized": bool(curves[:, j].max() >= NO_TRANSFER),
         }
     p_sat, k = fit_buildup(curves.mean(axis=1))
-    n_cycles = cycles_to_fraction(k, fraction)
+    polarized = [label for label, p in per.items() if p["polarized"]]
+    slowest = max(polarized, key=lambda label: per[label]["cycles"]) if polarized else None
+    n_cycles = per[slowest]["cycles"] if slowest else None
     out.update(
         per_nucleus=per,
+        slowest=slowest,
+        cycles=n_cycles,
+        extrapolated=bool(slowest and per[slowest]["extrapolated"]),
         mean_saturation=p_sat,
         mean_rate_per_cycle=k,
-        cycles=n_cycles,
-        extrapolated=n_cycles > result.cycles,
+        mean_cycles=cycles_to_fraction(k, fraction),
     )
     return out
 

@@ -9,8 +9,8 @@ from __future__ import annotations
 import hashlib
 import math
 import tomllib
-from dataclasses import dataclass, field, replace
-from importlib import resources
+from dataclasses import asdict, dataclass, field, replace
+from importlib import metadata, resources
 from pathlib import Path
 from typing import Any
 
@@ -137,6 +137,22 @@ class Scenario:
             cycles=self.cycles,
             imperfections=self.imperfections,
         )
+
+
+def scenario_settings(scenario: Scenario) -> dict[str, object]:
+    """The whole validated scenario as JSON-ready data (every field of every part, in SI
+    units, with the protocol's kind), so that a report can be repeated from its echo."""
+    data = asdict(scenario)
+    data["protocol"] = {"kind": scenario.protocol.kind, **data["protocol"]}
+    return data
+
+
+def dnpqc_version() -> str:
+    """The installed dnpqc version ("unknown" when running from a bare source tree)."""
+    try:
+        return metadata.version("dnpqc")
+    except metadata.PackageNotFoundError:
+        return "unknown"
 
 
 class _Table:
@@ -689,6 +705,12 @@ def _read_block(tables: list[_Table]) -> tuple[Pulse | BlockWait, ...]:
         isinstance(e, Pulse) for e in elements
     ):
         raise ScenarioError("`drive.block` needs at least one pulse and at least one `wait`")
+    total = sum(e.fraction for e in elements if isinstance(e, BlockWait))
+    if not math.isclose(total, 1.0, rel_tol=1e-9):
+        raise ScenarioError(
+            f"`drive.block` waits are fractions of the block length `drive.tau_s` and must sum "
+            f"to 1, got {total:g}"
+        )
     return tuple(elements)
 
 

@@ -31,7 +31,7 @@ from .store import ResultsStore
 Target = Program | Workload
 
 #: Points per task at most, per engine: circuit engines compile once per task.
-TASK_POINTS = {"exact": 4, "typical": 2, "trotter": 32, "noisy": 32}
+TASK_POINTS = {"exact": 4, "typical": 2, "trotter": 32, "noisy": 32, "noisy-baseline": 32}
 
 
 class Interrupted(Exception):

@@ -3,6 +3,7 @@
 - `exact`: dense propagators of the model (the reference, no circuit);
 - `trotter` (alias `noiseless`): the compiled program, whatever its strategy, noiseless on Aer;
 - `noisy`: the program mapped onto its processor, with processor noise;
+- `noisy-baseline`: the same noisy program with no transfer (the processor's own artefact);
 - `typical`: random states and sparse propagation (large clusters, no circuit).
 """
 
@@ -17,14 +18,15 @@ from ..program import Program, Workload
 from ..results import SweepResult
 from .circuit import simulate_trotter
 from .exact import simulate_exact
-from .noisy import simulate_noisy
+from .noisy import BASELINE_ENGINE, simulate_noisy, simulate_noisy_baseline
 from .typical import TypicalSettings, simulate_typical
 
-ENGINES: tuple[str, ...] = ("exact", "trotter", "noisy", "typical")
+ENGINES: tuple[str, ...] = ("exact", "trotter", "noisy", BASELINE_ENGINE, "typical")
 #: Other accepted names: `noiseless` is the compiled program without noise.
 ENGINE_ALIASES: dict[str, str] = {"noiseless": "trotter"}
-#: Engines that run circuits (and so need a compiled program); `noisy` needs it mapped.
-CIRCUIT_ENGINES = frozenset({"trotter", "noisy"})
+#: Engines that run circuits (and so need a compiled program); the noisy ones need it mapped.
+CIRCUIT_ENGINES = frozenset({"trotter", "noisy", BASELINE_ENGINE})
+NOISY_ENGINES = frozenset({"noisy", BASELINE_ENGINE})
 
 
 @dataclass(frozen=True)
@@ -66,4 +68,6 @@ def simulate_program(
         raise ValueError(f"the {engine} engine needs a compiled Program")
     if engine == "trotter":
         return simulate_trotter(program, on_point=on_point)
+    if engine == BASELINE_ENGINE:
+        return simulate_noisy_baseline(program, options.noise, on_point=on_point)
     return simulate_noisy(program, options.noise, on_point=on_point)

@@ -21,7 +21,13 @@ from qiskit_aer.library import SaveProbabilities
 
 from ..errors import RunError
 from ..model import z_signs
-from ..noise import NoiseSettings, noise_model, readout_factor, with_idle_relaxation
+from ..noise import (
+    NoiseSettings,
+    noise_model,
+    readout_factor,
+    with_idle_relaxation,
+    without_transfer,
+)
 from ..program import Program
 from ..resources import density_matrix_bytes, format_bytes, memory_budget_bytes
 from ..results import SweepResult
@@ -76,13 +82,20 @@ def _trajectory_reader(factor: float) -> Callable[[dict, int, int], np.ndarray]:
     return read
 
 
+BASELINE_ENGINE = "noisy-baseline"
+
+
 def simulate_noisy(
     program: Program,
     noise: NoiseSettings | None = None,
     *,
     on_point: Callable[[], None] | None = None,
+    transfer: bool = True,
 ) -> SweepResult:
-    """Polarizations of the mapped program under processor noise (and imperfections)."""
+    """Polarizations of the mapped program under processor noise (and imperfections).
+
+    Without `transfer`: the zero-transfer baseline of the same program (`without_transfer`).
+    """
     if not program.mapped:
         raise ValueError("the noisy engine needs a mapped program (program.map_onto)")
     noise = noise or NoiseSettings()
@@ -91,6 +104,9 @@ def simulate_noisy(
     circuits = [m.circuit for m in program.mapped]
     if noise.idle:
         circuits = [with_idle_relaxation(c, first.region, processor, scale) for c in circuits]
+    engine = "noisy"
+    if not transfer:
+        circuits, engine = [without_transfer(c) for c in circuits], BASELINE_ENGINE
     model = noise_model(processor, first.region, scale)
     factor = readout_factor(processor, scale)
     if choose_method(noise, first.circuit.num_qubits) == "density_matrix":
@@ -99,8 +115,19 @@ def simulate_noisy(
         def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
             return factor * nuclear_polarizations(data, cycles, num_nuclei)
 
-        return simulate_circuits(program, circuits, "noisy", sim, reader=read, on_point=on_point)
-    return _trajectories(program, [_pershot(c) for c in circuits], model, factor, noise, on_point)
+        return simulate_circuits(program, circuits, engine, sim, reader=read, on_point=on_point)
+    pershot = [_pershot(c) for c in circuits]
+    return _trajectories(program, pershot, model, factor, noise, on_point, engine)
+
+
+def simulate_noisy_baseline(
+    program: Program,
+    noise: NoiseSettings | None = None,
+    *,
+    on_point: Callable[[], None] | None = None,
+) -> SweepResult:
+    """The zero-transfer baseline of the noisy program: the processor's own artefact."""
+    return simulate_noisy(program, noise, on_point=on_point, transfer=False)
 
 
 def point_seed(base: int, value: float) -> int:
@@ -109,7 +136,7 @@ def point_seed(base: int, value: float) -> int:
     return (base + int.from_bytes(digest[:4], "little")) % 2**31
 
 
-def _trajectories(program, circuits, model, factor, noise, on_point) -> SweepResult:
+def _trajectories(program, circuits, model, factor, noise, on_point, engine) -> SweepResult:
     """Per point (own seed): means and standard errors, combined over imperfection nodes."""
     work = program.workload
     n, cycles = work.system.num_nuclei, work.cycles
@@ -140,4 +167,4 @@ def _trajectories(program, circuits, model, factor, noise, on_point) -> SweepRes
         if on_point is not None:
             on_point()
     values = np.asarray(work.values)
-    return SweepResult("noisy", work.parameter, values, work.system.labels, mean, err)
+    return SweepResult(engine, work.parameter, values, work.system.labels, mean, err)
