@@ -38,9 +38,15 @@ def parallel_options() -> dict[str, int]:
     return {"max_parallel_experiments": threads, "max_parallel_threads": threads}
 
 
+#: Aer fuses gates into blocks from this many qubits on; 1 fuses every run of small gates, which
+#: measured 1.16× faster on the demo's noisy program (NV + 4) with equal results (to 1e-13).
+FUSION_THRESHOLD = 1
+
+
 def density_matrix_simulator(**options) -> AerSimulator:
-    """Aer in density-matrix mode (exact resets), experiments in parallel."""
-    return AerSimulator(method="density_matrix", **{**parallel_options(), **options})
+    """Aer in density-matrix mode (exact resets), experiments in parallel, gates fused."""
+    defaults = {**parallel_options(), "fusion_threshold": FUSION_THRESHOLD}
+    return AerSimulator(method="density_matrix", **{**defaults, **options})
 
 
 def nuclear_polarizations(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
