@@ -26,5 +26,5 @@ def test_example_transfers_inside_its_sweep_with_a_small_trotter_error(path):
         assert peak["magnitude"] > 0.1
     # two nuclei with resonances apart may have no good common value: that warning is the
     # point of such an example; any other warning is not
-    warnings = run_warnings(sc, exact, trotter_error=error["value"])
+    warnings = run_warnings(sc.workload(), exact, trotter_error=error["value"])
     assert [w for w in warnings if "best common value" not in w] == []

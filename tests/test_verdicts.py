@@ -112,23 +112,27 @@ def test_warnings_name_each_misleading_answer():
     sweep = '[sweep]\nparameter = "rabi_hz"\nstart = 300e3\nstop = 360e3\npoints = 13\n'
     sc = _scenario(a_par=20e3, a_perp=6e3, time_s=80e-6, sweep=sweep)
     nu = nuclear_frequency_hz(sc.system, 0)
-    nothing = run_warnings(sc, _result("exact", [0 * X]), trotter_error=0.2)
+    nothing = run_warnings(sc.workload(), _result("exact", [0 * X]), trotter_error=0.2)
     joined = " | ".join(nothing)
     assert "no transfer at all" in joined
     assert f"a-priori resonance at {nu / 1e3:.4g} kHz lies outside the sweep" in joined
     assert "Trotter error 0.2 exceeds 0.05" in joined
     assert "far from every Hartmann–Hahn match" in joined
-    edge = run_warnings(sc, _result("exact", [_bump(360e3, 0.3)]))
+    edge = run_warnings(sc.workload(), _result("exact", [_bump(360e3, 0.3)]))
     assert any("on the sweep edge" in w for w in edge)
     weak = run_warnings(
-        _scenario(), _result("exact", [_bump(310e3, 0.5), _bump(350e3, 0.05), _bump(310e3, 0.4)])
+        _scenario().workload(),
+        _result("exact", [_bump(310e3, 0.5), _bump(350e3, 0.05), _bump(310e3, 0.4)]),
     )
     assert any("B: the best common value" in w and "below 10%" in w for w in weak)
     tiny = _scenario(a_par=20.0, a_perp=30.0)
-    assert any("outside the plausible" in w for w in run_warnings(tiny, _result("exact", [X])))
+    assert any(
+        "outside the plausible" in w for w in run_warnings(tiny.workload(), _result("exact", [X]))
+    )
     ladder = {"ladder": [{"total_error": 1.0}, {"total_error": 1.3}]}
     assert any(
-        "step advice" in w for w in run_warnings(sc, _result("exact", [X]), steps_advice=ladder)
+        "step advice" in w
+        for w in run_warnings(sc.workload(), _result("exact", [X]), steps_advice=ladder)
     )
 
 
@@ -143,7 +147,7 @@ def test_detuning_sweep_reports_both_matches_and_the_engine_shows_them():
         "points = 105\n"
     )
     sc = _scenario(a_par=20e3, a_perp=6e3, rabi=rabi, time_s=80e-6, sweep=sweep)
-    warnings = run_warnings(sc, simulate(sc, "exact"))
+    warnings = run_warnings(sc.workload(), simulate(sc, "exact"))
     assert any("matches at both" in w for w in warnings)
     curve = np.abs(simulate(sc, "exact").polarization[:, 0, 0])
     values = np.asarray(sc.sweep.values)

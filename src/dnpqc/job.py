@@ -155,7 +155,7 @@ class RunOutcome:
         """What a planner must not miss (`verdicts.run_warnings`), plus unfound noisy peaks."""
         error = self.trotter_error()
         value = error["value"] if error else None
-        out = run_warnings(self.scenario, self.reference, trotter_error=value)
+        out = run_warnings(self.scenario.workload(), self.reference, trotter_error=value)
         out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
         return out
 

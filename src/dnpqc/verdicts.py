@@ -20,10 +20,10 @@ import math
 import numpy as np
 
 from .model import effective_perp_hz, nuclear_frequency_hz
+from .program import Workload
 from .protocols import SpinLock, expected_resonances
 from .report import format_value
 from .results import NO_TRANSFER, SweepResult, refined_peak
-from .scenario import Scenario
 
 #: Warning thresholds (Trotter error in |ΔP|; the others as stated in each check).
 TROTTER_ERROR_LIMIT = 0.05
@@ -146,7 +146,7 @@ def _verdict(comp: dict, parameter: str) -> str:
 
 
 def run_warnings(
-    scenario: Scenario,
+    work: Workload,
     reference: SweepResult,
     *,
     trotter_error: float | None = None,
@@ -156,11 +156,11 @@ def run_warnings(
     checks = [
         _no_transfer(reference),
         _edge_peaks(reference),
-        _resonances_outside(scenario),
+        _resonances_outside(work),
         _weak_at_best_common(reference),
-        _implausible_couplings(scenario),
-        _rabi_far_from_matches(scenario),
-        _detuning_matches(scenario),
+        _implausible_couplings(work),
+        _rabi_far_from_matches(work),
+        _detuning_matches(work),
     ]
     checks.append(_trotter_too_large(trotter_error))
     if steps_advice is not None:
@@ -205,10 +205,10 @@ def _edge_peaks(result: SweepResult) -> list[str]:
     return out
 
 
-def _resonances_outside(scenario: Scenario) -> list[str]:
-    par, values = scenario.sweep.parameter, scenario.sweep.values
+def _resonances_outside(work: Workload) -> list[str]:
+    par, values = work.parameter, work.values
     lo, hi = min(values), max(values)
-    inside = expected_resonances(scenario.system, scenario.protocol, par, lo, hi)
+    inside = expected_resonances(work.system, work.protocol, par, lo, hi)
     if par == "tau_s":
         return [
             f"{label}: no a-priori resonance τ = m/(2ν̃) inside the sweep "
@@ -216,7 +216,7 @@ def _resonances_outside(scenario: Scenario) -> list[str]:
             for label, found in inside.items()
             if not found
         ]
-    every = expected_resonances(scenario.system, scenario.protocol, par, -math.inf, math.inf)
+    every = expected_resonances(work.system, work.protocol, par, -math.inf, math.inf)
     out = []
     for label, found in every.items():
         for v in found:
@@ -244,10 +244,10 @@ def _weak_at_best_common(result: SweepResult) -> list[str]:
     return out
 
 
-def _implausible_couplings(scenario: Scenario) -> list[str]:
+def _implausible_couplings(work: Workload) -> list[str]:
     low, high = HYPERFINE_RANGE_HZ
     out = []
-    for n in scenario.system.nuclei:
+    for n in work.system.nuclei:
         size = math.hypot(n.a_par_hz, n.a_perp_hz)
         if not low <= size <= high:
             out.append(
@@ -257,22 +257,22 @@ def _implausible_couplings(scenario: Scenario) -> list[str]:
     return out
 
 
-def _drive_values(scenario: Scenario, key: str) -> list[float]:
-    if scenario.sweep.parameter == key:
-        return list(scenario.sweep.values)
-    return [getattr(scenario.protocol, key)]
+def _drive_values(work: Workload, key: str) -> list[float]:
+    if work.parameter == key:
+        return list(work.values)
+    return [getattr(work.protocol, key)]
 
 
-def _rabi_far_from_matches(scenario: Scenario) -> list[str]:
+def _rabi_far_from_matches(work: Workload) -> list[str]:
     """Spin-lock: every Rabi frequency more than FAR_WIDTHS widths from every match ν̃_j, the
     width being max(A⊥,eff, 1/T) (flip-flop rate and Fourier limit of the lock time T)."""
-    protocol, system = scenario.protocol, scenario.system
-    if not isinstance(protocol, SpinLock) or scenario.sweep.parameter == "detuning_hz":
+    protocol, system = work.protocol, work.system
+    if not isinstance(protocol, SpinLock) or work.parameter == "detuning_hz":
         return []
-    shortest = min(_drive_values(scenario, "interaction_time_s"))
+    shortest = min(_drive_values(work, "interaction_time_s"))
     width = max(max(effective_perp_hz(system, j) for j in range(system.num_nuclei)), 1.0 / shortest)
     nus = [nuclear_frequency_hz(system, j) for j in range(system.num_nuclei)]
-    rabis = _drive_values(scenario, "rabi_hz")
+    rabis = _drive_values(work, "rabi_hz")
     nearest = min(abs(r - nu) for r in rabis for nu in nus)
     if nearest <= FAR_WIDTHS * width:
         return []
@@ -284,12 +284,10 @@ def _rabi_far_from_matches(scenario: Scenario) -> list[str]:
     ]
 
 
-def _detuning_matches(scenario: Scenario) -> list[str]:
-    if scenario.sweep.parameter != "detuning_hz" or not isinstance(scenario.protocol, SpinLock):
+def _detuning_matches(work: Workload) -> list[str]:
+    if work.parameter != "detuning_hz" or not isinstance(work.protocol, SpinLock):
         return []
-    every = expected_resonances(
-        scenario.system, scenario.protocol, "detuning_hz", -math.inf, math.inf
-    )
+    every = expected_resonances(work.system, work.protocol, "detuning_hz", -math.inf, math.inf)
     par = "detuning_hz"
     return [
         f"{label}: a detuning sweep matches at both Δ = {format_value(par, v[0])} and "

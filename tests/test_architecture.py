@@ -1,0 +1,67 @@
+"""Imports point one way: each module imports only modules of its own stage or of earlier ones.
+
+The stages follow the data (README "Architecture"): base → physics → compile → engines →
+analysis → edges (scenario files, orchestration, CLI). Read from the source text with `ast`
+(common practice, no source), so a new back-edge fails here rather than in review.
+"""
+
+import ast
+from pathlib import Path
+
+import pytest
+
+PACKAGE = Path(__file__).resolve().parents[1] / "src" / "dnpqc"
+
+STAGES = {
+    "base": {"constants", "errors", "limits", "resources", "output", "results", "imperfections"},
+    "physics": {"model", "lattice", "protocols", "propagation", "expr"},
+    "compile": {"trotter", "processor", "mapping", "program", "budget", "noise", "strategy"},
+    "engines": {"engines"},
+    "analysis": {"codesign", "verdicts", "report", "qasm", "store", "sweep"},
+    "edges": {"scenario", "job", "cli", "__init__"},
+}
+ORDER = list(STAGES)
+
+
+def stage_of(module: str) -> int:
+    top = module.split(".")[0]
+    for index, name in enumerate(ORDER):
+        if top in STAGES[name]:
+            return index
+    raise KeyError(module)
+
+
+def modules() -> list[tuple[str, Path]]:
+    out = []
+    for path in sorted(PACKAGE.rglob("*.py")):
+        rel = path.relative_to(PACKAGE).with_suffix("")
+        out.append((".".join(rel.parts), path))
+    return out
+
+
+def imported(module: str, path: Path) -> set[str]:
+    """dnpqc modules that `module` imports (relative imports resolved)."""
+    package = module.split(".")[:-1]
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.ImportFrom) and node.level:
+            base = package[: len(package) - (node.level - 1)] if node.level > 1 else package
+            if node.module:
+                found.add(".".join([*base, node.module]))
+            else:
+                found.update(".".join([*base, alias.name]) for alias in node.names)
+    return {m for m in found if m}
+
+
+def test_every_module_has_a_stage():
+    for module, _ in modules():
+        stage_of(module)
+
+
+@pytest.mark.parametrize(("module", "path"), modules(), ids=[m for m, _ in modules()])
+def test_imports_point_down_the_pipeline(module, path):
+    mine = stage_of(module)
+    for other in imported(module, path):
+        if other.split(".")[0] in ("scenarios",):
+            continue
+        assert stage_of(other) <= mine, f"{module} ({ORDER[mine]}) imports {other}"
