@@ -442,3 +442,17 @@ def test_tiny_angle_coefficients_are_refused_not_lost(tmp_path, capsys):
     one_line_exit_2(["sweep", str(path), "--engine", "trotter"], capsys, "coefficient below")
     path.write_text(pulsed)
     assert main(["sweep", str(path), "--engine", "trotter"]) == 0
+
+
+def test_an_edit_never_silently_discards_an_unfinished_run(tiny, tmp_path, capsys):
+    out = tmp_path / "out"
+    sc = parse_scenario(TINY)
+    store = ResultsStore(
+        out / STORE_NAME, digest=sc.digest, engines=("exact",), shape=(2, 1), points=3
+    )
+    store.put("exact", [0], sc.sweep.values[:1], np.zeros((1, 2, 1)))  # as if killed here
+    store.close()
+    tiny.write_text(TINY + "# a comment-only edit\n")
+    run = ["run", str(tiny), "--out", str(out), "--engines", "exact", "--workers", "1"]
+    one_line_exit_2(run, capsys, "holds an unfinished run of another version of the scenario")
+    assert main([*run, "--fresh"]) == 0

@@ -145,3 +145,37 @@ def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
     done = store.computations()
     store.close()
     assert len(done) == len(set(done)) == 30  # no point computed twice
+
+
+ORPHAN_SCRIPT = """
+import sys, time
+from dnpqc.sweep import _executor
+pool = _executor(2, None)
+futures = [pool.submit(time.sleep, 60) for _ in range(2)]
+time.sleep(1.0)
+print(" ".join(str(pid) for pid in pool._processes), flush=True)
+time.sleep(60)
+"""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/status") as fh:
+            state = next(line for line in fh if line.startswith("State:"))
+    except (FileNotFoundError, StopIteration):
+        return False
+    return "Z" not in state.split()[1]  # a zombie has exited
+
+
+def test_pool_workers_exit_when_the_run_is_killed():
+    proc = subprocess.Popen(
+        [sys.executable, "-c", ORPHAN_SCRIPT], stdout=subprocess.PIPE, text=True
+    )
+    workers = [int(pid) for pid in proc.stdout.readline().split()]
+    assert len(workers) == 2 and all(_alive(pid) for pid in workers)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
+    deadline = time.time() + 10
+    while any(_alive(pid) for pid in workers) and time.time() < deadline:
+        time.sleep(0.1)
+    assert not any(_alive(pid) for pid in workers)

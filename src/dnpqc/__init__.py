@@ -11,7 +11,7 @@ The public API, for notebooks and scripts:
 
 from .engines import simulate
 from .engines.circuit import Program, compile_program
-from .errors import ScenarioError
+from .errors import RunError, ScenarioError
 from .job import RunOutcome, run_scenario
 from .model import Coupling, Nucleus, SpinSystem, hamiltonian
 from .results import SweepResult
@@ -21,6 +21,7 @@ __all__ = [
     "Coupling",
     "Nucleus",
     "Program",
+    "RunError",
     "RunOutcome",
     "Scenario",
     "ScenarioError",

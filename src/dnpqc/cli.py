@@ -26,7 +26,7 @@ from .scenario import (
     program_gates,
     sweep_work,
 )
-from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_run
+from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_digest, unfinished_run
 from .sweep import Interrupted, check_scheduler_address
 
 EXIT_USAGE = 2
@@ -279,8 +279,9 @@ def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: 
     deleted here: a new or replacing store is made at its first commit.
 
     Without `--resume`, a previous store is replaced, except an unfinished run of this same
-    scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost).
-    A store that another live run holds is refused.
+    scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost); an
+    unfinished run of another scenario (say, after an edit) is kept until `--fresh`. A store
+    that another live run holds is refused.
     """
     path = out / STORE_NAME
     if resume and not path.exists():
@@ -292,8 +293,22 @@ def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: 
             f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
             "it with --resume or discard it with --fresh"
         )
+    other = unfinished_digest(path) if replace and not fresh else None
+    if other is not None and other != scenario.digest:
+        raise ScenarioError(
+            f"{str(out)!r} holds an unfinished run of another version of the scenario "
+            f"(content hash {other}, this one {scenario.digest}); discard it with --fresh or "
+            "use another --out"
+        )
     shape = (scenario.cycles, scenario.system.num_nuclei)
-    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape, replace=replace)
+    return ResultsStore(
+        path,
+        digest=scenario.digest,
+        engines=engines,
+        shape=shape,
+        replace=replace,
+        points=len(scenario.sweep.values),
+    )
 
 
 def write_run(outcome: RunOutcome, out: Path) -> None:

@@ -210,7 +210,7 @@ class _Table:
     def boolean(self, name: str, default: Any = _MISSING) -> bool:
         value = self._get(name, default)
         if not isinstance(value, bool):
-            raise ScenarioError(f"`{self.key(name)}` must be true or false, got {value!r}")
+            raise ScenarioError(f"`{self.key(name)}` must be true or false, got {_brief(value)}")
         return value
 
     def table(self, name: str) -> _Table | None:
@@ -220,7 +220,9 @@ class _Table:
     def tables(self, name: str) -> list[_Table]:
         value = self._get(name, [])
         if not isinstance(value, list):
-            raise ScenarioError(f"`{self.key(name)}` must be an array of tables, got {value!r}")
+            raise ScenarioError(
+                f"`{self.key(name)}` must be an array of tables, got {_brief(value)}"
+            )
         return [_Table(item, f"{self.key(name)}[{i}]") for i, item in enumerate(value)]
 
     def raw(self, name: str) -> Any:
@@ -517,7 +519,7 @@ def _read_nucleus(t: _Table) -> Nucleus:
 def _read_vector(value: Any, key: str) -> tuple[float, float, float]:
     if not isinstance(value, list) or len(value) != 3:
         raise ScenarioError(
-            f"`{key}` must be a list of three numbers [x, y, z] in nm, got {value!r}"
+            f"`{key}` must be a list of three numbers [x, y, z] in nm, got {_brief(value)}"
         )
     vec = tuple(
         _check_number(v, key, minimum=None, strict=False, maximum=MAX_POSITION_NM) for v in value
@@ -566,7 +568,7 @@ def _read_couplings(tables: list[_Table], labels: list[str]) -> dict[tuple[int, 
         if not (
             isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str) for p in pair)
         ):
-            raise ScenarioError(f"`{t.key('pair')}` must be two nucleus labels, got {pair!r}")
+            raise ScenarioError(f"`{t.key('pair')}` must be two nucleus labels, got {_brief(pair)}")
         for p in pair:
             if p not in labels:
                 raise ScenarioError(

@@ -18,6 +18,7 @@ import threading
 import time
 from collections.abc import Callable
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 
 import numpy as np
@@ -182,9 +183,30 @@ def _run_parallel(scenario, tasks, executor, finish) -> None:
         while remaining:
             finished, remaining = _wait_any(remaining)
             for future in finished:
-                finish(pending[future], *future.result())
+                finish(pending[future], *_task_result(future))
     finally:
         executor.shutdown(cancel_futures=True)
+
+
+def _task_result(future):
+    """A finished task's result; a dead worker or a lost cluster becomes one RunError (what
+    finished is in the store), while user errors raised by the task pass through."""
+    try:
+        return future.result()
+    except (ScenarioError, RunError, KeyboardInterrupt):
+        raise
+    except BrokenProcessPool:
+        raise RunError(
+            "a worker process died (out of memory?); the finished points are stored: "
+            "continue with --resume"
+        ) from None
+    except Exception as exc:
+        if not hasattr(future, "key"):  # a local task: a genuine error, shown in full
+            raise
+        raise RunError(
+            f"the Dask cluster failed ({type(exc).__name__}: {str(exc)[:120]}); the finished "
+            "points are stored: continue with --resume"
+        ) from None
 
 
 def _keep(memory, engine, indices, pol, err) -> None:
