@@ -456,3 +456,35 @@ def test_an_edit_never_silently_discards_an_unfinished_run(tiny, tmp_path, capsy
     run = ["run", str(tiny), "--out", str(out), "--engines", "exact", "--workers", "1"]
     one_line_exit_2(run, capsys, "holds an unfinished run of another version of the scenario")
     assert main([*run, "--fresh"]) == 0
+
+
+@pytest.mark.parametrize(
+    ("answer", "match"),
+    [(None, "it did not answer"), (b"HTTP/1.1 400 Bad Request\r\n\r\n", "not a Dask scheduler")],
+)
+def test_a_listener_that_is_not_a_scheduler_ends_in_one_line(
+    tiny, tmp_path, capsys, monkeypatch, answer, match
+):
+    pytest.importorskip("distributed")
+    import socket
+    import threading
+    import time
+
+    monkeypatch.setattr("dnpqc.sweep.CONNECT_TIMEOUT_S", 1)
+    server = socket.create_server(("127.0.0.1", 0))
+    held = []
+
+    def serve():
+        conn, _ = server.accept()
+        held.append(conn)
+        if answer:
+            conn.sendall(answer)
+
+    threading.Thread(target=serve, daemon=True).start()
+    address = f"tcp://127.0.0.1:{server.getsockname()[1]}"
+    out = tmp_path / "out"
+    start = time.monotonic()
+    argv = ["run", str(tiny), "--out", str(out), "--engines", "exact", "--scheduler", address]
+    one_line_exit_2(argv, capsys, match)
+    assert time.monotonic() - start < 10 and not out.exists()
+    server.close()
