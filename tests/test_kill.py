@@ -47,7 +47,7 @@ steps = 10
 def assert_complete(folder) -> None:
     """Every visible file in `folder` is whole: JSON parses, PNG closes, CSV ends a line,
     OpenQASM parses, SQLite passes its integrity check."""
-    for path in folder.iterdir():
+    for path in (p for p in folder.iterdir() if p.is_file()):
         if path.name.startswith("."):
             assert path.name.endswith(".tmp"), path
             continue

@@ -1,6 +1,7 @@
 """Parallel, distributed and resumable sweeps: the same numbers as a serial run."""
 
 import json
+import os
 import signal
 import sqlite3
 import subprocess
@@ -179,3 +180,25 @@ def test_pool_workers_exit_when_the_run_is_killed():
     while any(_alive(pid) for pid in workers) and time.time() < deadline:
         time.sleep(0.1)
     assert not any(_alive(pid) for pid in workers)
+
+
+def test_ctrl_c_of_a_pooled_run_is_one_line(tmp_path):
+    # Ctrl-C in a terminal signals the whole process group: parent and pool workers
+    path = tmp_path / "k.toml"
+    path.write_text(KILLABLE)
+    out = tmp_path / "out"
+    args = ["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "2"]
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "dnpqc.cli", *args],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+        start_new_session=True,
+    )
+    deadline = time.time() + 60
+    while _rows(out / STORE_NAME) < 4 and time.time() < deadline and proc.poll() is None:
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGINT)
+    err = proc.communicate(timeout=60)[1]
+    assert proc.returncode == 130, err
+    assert err.count("\n") == 1 and "points stored; the rest runs with --resume" in err, err
