@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 import qutip
-from conftest import one_nucleus, pulsed_text
+from conftest import THREE_NUCLEI, one_nucleus, pulsed_text
 from helpers import spin_lock_reference
 
 from dnpqc import parse_scenario, simulate
@@ -155,3 +155,15 @@ def test_finite_pulses_approach_ideal_pulses():
         errors.append(abs(simulate(finite, "exact").polarization[0, 0, 0] - ideal))
     assert errors[1] < errors[0]
     assert errors[1] < 0.01
+
+
+def test_eigendecomposition_cache_stays_bounded(monkeypatch):
+    # a swept Rabi frequency gives a new H per point; the cache must not grow with the sweep
+    from dnpqc.engines import exact
+
+    sc = parse_scenario(THREE_NUCLEI)
+    props = exact._Propagators(sc.system)
+    monkeypatch.setattr(exact, "CACHE_BYTES", 3 * 16 * 16 * 17)  # three 16×16 eigh results
+    for rabi in np.linspace(300e3, 350e3, 10):
+        props._decomposition((float(rabi), 0.0, 0.0))
+    assert len(props._eig) == 3
