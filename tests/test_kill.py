@@ -13,35 +13,12 @@ import sys
 import time
 
 import openqasm3
+from conftest import TWO_NUCLEI_SWEEP
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 PNG_END = b"IEND\xaeB`\x82"  # the IEND chunk and its CRC close every PNG (PNG spec, ISO 15948)
 
-SCENARIO = """
-[spins]
-field_t = 0.05
-[[spins.nuclei]]
-label = "C1"
-a_par_hz = 20e3
-a_perp_hz = 20e3
-[[spins.nuclei]]
-label = "C2"
-a_par_hz = -30e3
-a_perp_hz = 10e3
-[drive]
-protocol = "spin-lock"
-rabi_hz = 530e3
-[sweep]
-parameter = "rabi_hz"
-start = 515e3
-stop = 550e3
-points = 6
-[cycle]
-interaction_time_s = 20e-6
-count = 2
-[trotter]
-steps = 10
-"""
+SCENARIO = TWO_NUCLEI_SWEEP.replace("points = 8", "points = 6").replace("steps = 60", "steps = 10")
 
 
 def assert_complete(folder) -> None:

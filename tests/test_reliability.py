@@ -8,34 +8,22 @@ import sqlite3
 import numpy as np
 import openqasm3
 import pytest
+from conftest import TWO_NUCLEI_SWEEP
 
 from dnpqc import cli, output, parse_scenario, qasm
 from dnpqc.cli import main
 from dnpqc.resources import format_bytes
 from dnpqc.store import STORE_NAME, ResultsStore
 
-TINY = """
-name = "tiny"
-[spins]
-field_t = 0.05
-[[spins.nuclei]]
-label = "C1"
-a_par_hz = 20e3
-a_perp_hz = 20e3
-[drive]
-protocol = "spin-lock"
-rabi_hz = 530e3
-[sweep]
-parameter = "rabi_hz"
-start = 515e3
-stop = 550e3
-points = 3
-[cycle]
-interaction_time_s = 20e-6
-count = 2
-[trotter]
-steps = 8
-"""
+C2 = '[[spins.nuclei]]\nlabel = "C2"\na_par_hz = -30e3\na_perp_hz = 10e3\n'
+#: One nucleus, 3 points, 2 cycles of 8 steps: runs in a fraction of a second.
+TINY = (
+    TWO_NUCLEI_SWEEP.replace('name = "small"', 'name = "tiny"')
+    .replace(C2, "")
+    .replace("points = 8", "points = 3")
+    .replace("count = 3", "count = 2")
+    .replace("steps = 60", "steps = 8")
+)
 
 
 @pytest.fixture
