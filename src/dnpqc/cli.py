@@ -436,6 +436,19 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("dnpqc: interrupted; nothing was written", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except MemoryError:
+        print(
+            "dnpqc: error: out of memory; lower the sweep, cycles, steps or nuclei "
+            "(see --max-work)",
+            file=sys.stderr,
+        )
+        return EXIT_USAGE
+    except BrokenPipeError:
+        # the reader of stdout went away (e.g. `| head`); point stdout at /dev/null so that the
+        # final flush at exit cannot fail again (Python docs, signal module, "Note on SIGPIPE")
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        print("dnpqc: error: standard output was closed before the end", file=sys.stderr)
+        return EXIT_USAGE
 
 
 if __name__ == "__main__":
