@@ -262,7 +262,7 @@ def _cmd_run(args) -> int:
         print(f"  {note}")
     if work > LONG_RUN_WORK:
         print(f"  work: about {work:.3g} units (limit --max-work {args.max_work:.3g})")
-    print(f"report: {out / 'report.json'} (plots and sweep.csv beside it)")
+    print(f"report: {output.one_line(str(out / 'report.json'))} (plots and sweep.csv beside it)")
     return 0
 
 
