@@ -480,10 +480,11 @@ def test_a_listener_that_is_not_a_scheduler_ends_in_one_line(
 
 def test_typical_work_grows_with_the_window_not_the_steps(tiny, capsys, no_work):
     # expm_multiply takes about 6·‖2π·H·t‖₁ products (Al-Mohy & Higham 2011): a 1 s window at
-    # 530 kHz is ~2e7 products per cycle, whatever trotter.steps says (a fuzz case hung here)
+    # 530 kHz is ~3e7 products per cycle, whatever trotter.steps says (a fuzz case hung here)
     from dnpqc.scenario import sweep_work
 
     long = TINY.replace("interaction_time_s = 20e-6", "interaction_time_s = 1.0")
+    long = long.replace("points = 3", "points = 10")
     sc = parse_scenario(long)
     assert sweep_work(sc, "typical") > 1e11 > 1e6 > sweep_work(sc, "exact")
     tiny.write_text(long)
