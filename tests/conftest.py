@@ -142,3 +142,32 @@ points = 4
 interaction_time_s = 100e-6
 count = 4
 """
+
+
+#: Two nuclei swept through their matches, small enough for end-to-end CLI runs.
+TWO_NUCLEI_SWEEP = """
+name = "small"
+[spins]
+field_t = 0.05
+[[spins.nuclei]]
+label = "C1"
+a_par_hz = 20e3
+a_perp_hz = 20e3
+[[spins.nuclei]]
+label = "C2"
+a_par_hz = -30e3
+a_perp_hz = 10e3
+[drive]
+protocol = "spin-lock"
+rabi_hz = 530e3
+[sweep]
+parameter = "rabi_hz"
+start = 515e3
+stop = 550e3
+points = 8
+[cycle]
+interaction_time_s = 20e-6
+count = 3
+[trotter]
+steps = 60
+"""

@@ -6,7 +6,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 import qutip
-from conftest import AZIMUTH_TRIPLE, one_nucleus, pulsed_text
+from conftest import AZIMUTH_TRIPLE, THREE_NUCLEI, one_nucleus, pulsed_text
 from helpers import spin_lock_reference
 
 from dnpqc import parse_scenario, simulate
@@ -212,3 +212,15 @@ def test_polarizations_invariant_under_a_common_change_of_azimuths(three_nuclei)
     base = with_azimuths((10.0, 130.0, -100.0))
     assert np.allclose(with_azimuths((60.0, 180.0, -50.0)), base, atol=1e-9, rtol=0)
     assert np.max(np.abs(with_azimuths((10.0, 130.0, 0.0)) - base)) > 1e-4
+
+
+def test_eigendecomposition_cache_stays_bounded(monkeypatch):
+    # a swept Rabi frequency gives a new H per point; the cache must not grow with the sweep
+    from dnpqc import propagation
+
+    sc = parse_scenario(THREE_NUCLEI)
+    props = propagation.Propagators(sc.system)
+    monkeypatch.setattr(propagation, "CACHE_BYTES", 3 * 16 * 16 * 17)  # three 16×16 eigh results
+    for rabi in np.linspace(300e3, 350e3, 10):
+        props._decomposition((float(rabi), 0.0, 0.0))
+    assert len(props._eig) == 3

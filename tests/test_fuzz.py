@@ -7,6 +7,7 @@ ask for much work. `make fuzz` runs many more cases (DNPQC_FUZZ_EXAMPLES).
 """
 
 import contextlib
+import copy
 import io
 import json
 import math
@@ -108,7 +109,7 @@ def _paths(value, prefix=()):
 
 
 def _copy(value):
-    return json.loads(json.dumps(value))
+    return copy.deepcopy(value)
 
 
 HOSTILE = st.one_of(
@@ -196,7 +197,7 @@ def mutated_scenario(draw, keep_processor: bool = True) -> bytes:
             factor = draw(st.sampled_from([0.0, 0.5, 0.9, 1.1, 2.0, 10.0, -1.0]))
             parent[path[-1]] = _nudged(parent[path[-1]], factor)
         else:
-            parent[path[-1]] = draw(HOSTILE)
+            parent[path[-1]] = _copy(draw(HOSTILE))  # the strategy's lists must stay as they are
     text = toml_text(data)
     textual = draw(st.sampled_from(["none"] * 9 + ["duplicate", "cut", "byte"]))
     if textual == "duplicate":

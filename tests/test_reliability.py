@@ -8,34 +8,22 @@ import sqlite3
 import numpy as np
 import openqasm3
 import pytest
+from conftest import TWO_NUCLEI_SWEEP
 
 from dnpqc import cli, output, parse_scenario, qasm
 from dnpqc.cli import main
 from dnpqc.resources import format_bytes
 from dnpqc.store import STORE_NAME, ResultsStore
 
-TINY = """
-name = "tiny"
-[spins]
-field_t = 0.05
-[[spins.nuclei]]
-label = "C1"
-a_par_hz = 20e3
-a_perp_hz = 20e3
-[drive]
-protocol = "spin-lock"
-rabi_hz = 530e3
-[sweep]
-parameter = "rabi_hz"
-start = 515e3
-stop = 550e3
-points = 3
-[cycle]
-interaction_time_s = 20e-6
-count = 2
-[trotter]
-steps = 8
-"""
+C2 = '[[spins.nuclei]]\nlabel = "C2"\na_par_hz = -30e3\na_perp_hz = 10e3\n'
+#: One nucleus, 3 points, 2 cycles of 8 steps: runs in a fraction of a second.
+TINY = (
+    TWO_NUCLEI_SWEEP.replace('name = "small"', 'name = "tiny"')
+    .replace(C2, "")
+    .replace("points = 8", "points = 3")
+    .replace("count = 3", "count = 2")
+    .replace("steps = 60", "steps = 8")
+)
 
 
 @pytest.fixture
@@ -442,3 +430,63 @@ def test_tiny_angle_coefficients_are_refused_not_lost(tmp_path, capsys):
     one_line_exit_2(["sweep", str(path), "--engine", "trotter"], capsys, "coefficient below")
     path.write_text(pulsed)
     assert main(["sweep", str(path), "--engine", "trotter"]) == 0
+
+
+def test_an_edit_never_silently_discards_an_unfinished_run(tiny, tmp_path, capsys):
+    out = tmp_path / "out"
+    sc = parse_scenario(TINY)
+    store = ResultsStore(
+        out / STORE_NAME, digest=sc.digest, engines=("exact",), shape=(2, 1), points=3
+    )
+    store.put("exact", [0], sc.sweep.values[:1], np.zeros((1, 2, 1)))  # as if killed here
+    store.close()
+    tiny.write_text(TINY + "# a comment-only edit\n")
+    run = ["run", str(tiny), "--out", str(out), "--engines", "exact", "--workers", "1"]
+    one_line_exit_2(run, capsys, "holds an unfinished run of another version of the scenario")
+    assert main([*run, "--fresh"]) == 0
+
+
+@pytest.mark.parametrize(
+    ("answer", "match"),
+    [(None, "it did not answer"), (b"HTTP/1.1 400 Bad Request\r\n\r\n", "not a Dask scheduler")],
+)
+def test_a_listener_that_is_not_a_scheduler_ends_in_one_line(
+    tiny, tmp_path, capsys, monkeypatch, answer, match
+):
+    pytest.importorskip("distributed")
+    import socket
+    import threading
+    import time
+
+    monkeypatch.setattr("dnpqc.sweep.CONNECT_TIMEOUT_S", 1)
+    server = socket.create_server(("127.0.0.1", 0))
+    held = []
+
+    def serve():
+        conn, _ = server.accept()
+        held.append(conn)
+        if answer:
+            conn.sendall(answer)
+
+    threading.Thread(target=serve, daemon=True).start()
+    address = f"tcp://127.0.0.1:{server.getsockname()[1]}"
+    out = tmp_path / "out"
+    start = time.monotonic()
+    argv = ["run", str(tiny), "--out", str(out), "--engines", "exact", "--scheduler", address]
+    one_line_exit_2(argv, capsys, match)
+    assert time.monotonic() - start < 10 and not out.exists()
+    server.close()
+
+
+def test_typical_work_grows_with_the_window_not_the_steps(tiny, capsys, no_work):
+    # a Chebyshev propagator takes about 2π·t·r products (Tal-Ezer & Kosloff 1984): a 1 s window
+    # at ~1 MHz of Pauli weight is ~5e6 products per cycle, whatever trotter.steps says (a fuzz
+    # case hung here)
+    from dnpqc.scenario import sweep_work
+
+    long = TINY.replace("interaction_time_s = 20e-6", "interaction_time_s = 1.0")
+    long = long.replace("points = 3", "points = 40")
+    sc = parse_scenario(long)
+    assert sweep_work(sc, "typical") > 1e11 > 1e6 > sweep_work(sc, "exact")
+    tiny.write_text(long)
+    one_line_exit_2(["sweep", str(tiny), "--engine", "typical"], capsys, "more than --max-work")

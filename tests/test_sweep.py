@@ -1,11 +1,13 @@
 """Parallel, distributed and resumable sweeps: the same numbers as a serial run."""
 
 import json
+import os
 import signal
 import sqlite3
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -153,3 +155,79 @@ def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
     done = store.computations()
     store.close()
     assert len(done) == len(set(done)) == 30  # no point computed twice
+
+
+ORPHAN_SCRIPT = """
+import sys, time
+from dnpqc.sweep import _executor
+pool = _executor(2, None)
+futures = [pool.submit(time.sleep, 60) for _ in range(2)]
+time.sleep(1.0)
+print(" ".join(str(pid) for pid in pool._processes), flush=True)
+time.sleep(60)
+"""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/status") as fh:
+            state = next(line for line in fh if line.startswith("State:"))
+    except (FileNotFoundError, StopIteration):
+        return False
+    return "Z" not in state.split()[1]  # a zombie has exited
+
+
+def _session_members(session: int) -> list[int]:
+    """Live processes of a session (Linux /proc; the 6th field of stat is the session id)."""
+    members = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[3]) == session and fields[0] != "Z":
+            members.append(int(stat.parent.name))
+    return members
+
+
+def test_pool_workers_exit_when_the_run_is_killed():
+    # the run in a session of its own: after its SIGKILL no process of that session may remain,
+    # neither the pool workers nor multiprocessing's resource tracker
+    proc = subprocess.Popen(
+        [sys.executable, "-c", ORPHAN_SCRIPT],
+        stdout=subprocess.PIPE,
+        text=True,
+        start_new_session=True,
+    )
+    workers = [int(pid) for pid in proc.stdout.readline().split()]
+    assert len(workers) == 2 and all(_alive(pid) for pid in workers)
+    assert len(_session_members(proc.pid)) >= 3
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
+    deadline = time.time() + 10
+    while _session_members(proc.pid) and time.time() < deadline:
+        time.sleep(0.1)
+    assert not any(_alive(pid) for pid in workers)
+    assert _session_members(proc.pid) == []
+
+
+def test_ctrl_c_of_a_pooled_run_is_one_line(tmp_path):
+    # Ctrl-C in a terminal signals the whole process group: parent and pool workers
+    path = tmp_path / "k.toml"
+    path.write_text(KILLABLE)
+    out = tmp_path / "out"
+    args = ["run", str(path), "--out", str(out), "--engines", "exact", "--workers", "2"]
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "dnpqc.cli", *args],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+        start_new_session=True,
+    )
+    deadline = time.time() + 60
+    while _rows(out / STORE_NAME) < 1 and time.time() < deadline and proc.poll() is None:
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGINT)
+    err = proc.communicate(timeout=60)[1]
+    assert proc.returncode == 130, err
+    assert err.count("\n") == 1 and "points stored; the rest runs with --resume" in err, err

@@ -9,7 +9,7 @@ The public API, for notebooks and scripts:
 >>> result = simulate(sc, "exact")          # .polarization[point, cycle, nucleus]
 """
 
-from .errors import ScenarioError
+from .errors import RunError, ScenarioError
 from .job import RunOutcome, compile_program, run_scenario, simulate
 from .model import Coupling, Nucleus, SpinSystem, hamiltonian
 from .program import Program, Workload
@@ -20,6 +20,7 @@ __all__ = [
     "Coupling",
     "Nucleus",
     "Program",
+    "RunError",
     "RunOutcome",
     "Scenario",
     "ScenarioError",

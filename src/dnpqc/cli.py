@@ -19,6 +19,7 @@ from .job import RunOutcome, run_scenario, scenario_processor, scenario_programs
 from .limits import DEFAULT_MAX_WORK, check_program_size, check_work
 from .processor import Processor, make_processor, processor_for_spec
 from .program import Program
+from .resources import cores, threads_per_worker
 from .results import saturation
 from .scenario import (
     Scenario,
@@ -28,7 +29,7 @@ from .scenario import (
     program_gates,
     sweep_work,
 )
-from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_run
+from .store import STORE_NAME, ResultsStore, check_unlocked, unfinished_digest, unfinished_run
 from .strategy import Programs, approximation_error
 from .sweep import Interrupted, check_scheduler_address
 
@@ -81,7 +82,7 @@ def _parser() -> argparse.ArgumentParser:
         "--workers",
         type=int,
         default=None,
-        help="local worker processes (default: the number of cores)",
+        help="local worker processes (default 1: measured fastest here, see README Performance)",
     )
     run.add_argument(
         "--scheduler",
@@ -272,16 +273,29 @@ def _cmd_run(args) -> int:
         print(f"  {note}")
     if work > LONG_RUN_WORK:
         print(f"  work: about {work:.3g} units (limit --max-work {args.max_work:.3g})")
-    print(f"report: {out / 'report.json'} (plots and sweep.csv beside it)")
+    print(f"  workers: {_workers_line(workers, args.scheduler)}")
+    print(f"report: {output.one_line(str(out / 'report.json'))} (plots and sweep.csv beside it)")
     return 0
+
+
+#: Default worker processes: on the 2-core machines here one process (Aer spreading its
+#: experiments over the cores) ran the demo 1.5× faster than two workers (`make bench` case 7).
+DEFAULT_WORKERS = 1
 
 
 def _workers(value: int | None) -> int:
     if value is None:
-        return os.cpu_count() or 1
+        return DEFAULT_WORKERS
     if value < 1:
         raise ScenarioError(f"`--workers` must be >= 1, got {value}")
     return value
+
+
+def _workers_line(workers: int, scheduler: str | None) -> str:
+    if scheduler is not None:
+        return f"the Dask cluster at {output.one_line(scheduler)}"
+    threads = threads_per_worker(workers)
+    return f"{workers} process{'es' if workers > 1 else ''} × {threads} threads ({cores()} cores)"
 
 
 def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: bool):
@@ -289,8 +303,9 @@ def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: 
     deleted here: a new or replacing store is made at its first commit.
 
     Without `--resume`, a previous store is replaced, except an unfinished run of this same
-    scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost).
-    A store that another live run holds is refused.
+    scenario, which is kept until the user says `--resume` or `--fresh` (nothing is lost); an
+    unfinished run of another scenario (say, after an edit) is kept until `--fresh`. A store
+    that another live run holds is refused.
     """
     path = out / STORE_NAME
     if resume and not path.exists():
@@ -302,8 +317,22 @@ def _open_store(out: Path, scenario: Scenario, engines, *, resume: bool, fresh: 
             f"{str(out)!r} holds an unfinished run of this scenario ({STORE_NAME}); continue "
             "it with --resume or discard it with --fresh"
         )
+    other = unfinished_digest(path) if replace and not fresh else None
+    if other is not None and other != scenario.digest:
+        raise ScenarioError(
+            f"{str(out)!r} holds an unfinished run of another version of the scenario "
+            f"(content hash {other}, this one {scenario.digest}); discard it with --fresh or "
+            "use another --out"
+        )
     shape = (scenario.cycles, scenario.system.num_nuclei)
-    return ResultsStore(path, digest=scenario.digest, engines=engines, shape=shape, replace=replace)
+    return ResultsStore(
+        path,
+        digest=scenario.digest,
+        engines=engines,
+        shape=shape,
+        replace=replace,
+        points=len(scenario.sweep.values),
+    )
 
 
 def write_run(outcome: RunOutcome, out: Path) -> None:
@@ -535,6 +564,19 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("dnpqc: interrupted; nothing was written", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except MemoryError:
+        print(
+            "dnpqc: error: out of memory; lower the sweep, cycles, steps or nuclei "
+            "(see --max-work)",
+            file=sys.stderr,
+        )
+        return EXIT_USAGE
+    except BrokenPipeError:
+        # the reader of stdout went away (e.g. `| head`); point stdout at /dev/null so that the
+        # final flush at exit cannot fail again (Python docs, signal module, "Note on SIGPIPE")
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        print("dnpqc: error: standard output was closed before the end", file=sys.stderr)
+        return EXIT_USAGE
 
 
 if __name__ == "__main__":

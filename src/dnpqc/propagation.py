@@ -9,25 +9,45 @@ Evolution windows are exponentiated through `numpy.linalg.eigh`: exp(-2πi·H·t
 
 from __future__ import annotations
 
+from collections import OrderedDict
+
 import numpy as np
 
 from .model import SpinSystem, hamiltonian, z_signs
 from .protocols import CycleSchedule, Evolve, Pulse
 
+#: Memory the eigendecomposition cache may hold; the oldest entries go first beyond it.
+CACHE_BYTES = 64 * 2**20
+
 
 class Propagators:
-    """Cache of eigendecompositions of H for the drive settings met during a sweep."""
+    """Cache of eigendecompositions of H for the drive settings met during a sweep.
+
+    Bounded by CACHE_BYTES (least recently used out): a swept Rabi frequency gives a new H at
+    every point, and an unbounded cache grew by one 2^q × 2^q matrix per point.
+    """
 
     def __init__(self, system: SpinSystem):
         self.system = system
-        self._eig: dict[tuple[float, float, float], tuple[np.ndarray, np.ndarray]] = {}
+        self._eig: OrderedDict[tuple[float, float, float], tuple[np.ndarray, np.ndarray]] = (
+            OrderedDict()
+        )
+
+    def _decomposition(self, key: tuple[float, float, float]) -> tuple[np.ndarray, np.ndarray]:
+        if key in self._eig:
+            self._eig.move_to_end(key)
+            return self._eig[key]
+        h = hamiltonian(self.system, rabi_hz=key[0], detuning_hz=key[1], phase_rad=key[2])
+        self._eig[key] = np.linalg.eigh(h.to_matrix())
+        held = sum(w.nbytes + v.nbytes for w, v in self._eig.values())
+        while len(self._eig) > 1 and held > CACHE_BYTES:
+            w, v = self._eig.popitem(last=False)[1]
+            held -= w.nbytes + v.nbytes
+        return self._eig[key]
 
     def evolve(self, segment: Evolve, x: float) -> np.ndarray:
         key = (segment.rabi_hz.at(x), segment.detuning_hz.at(x), segment.phase_rad)
-        if key not in self._eig:
-            h = hamiltonian(self.system, rabi_hz=key[0], detuning_hz=key[1], phase_rad=key[2])
-            self._eig[key] = np.linalg.eigh(h.to_matrix())
-        w, v = self._eig[key]
+        w, v = self._decomposition(key)
         phases = np.exp(-2j * np.pi * w * segment.duration_s.at(x))
         return (v * phases) @ v.conj().T
 

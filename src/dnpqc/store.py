@@ -50,9 +50,11 @@ class ResultsStore:
         engines: tuple[str, ...],
         shape: tuple[int, int],
         replace: bool = False,
+        points: int | None = None,
     ):
         self.path = Path(path)
         self.shape = shape  # (cycles, nuclei)
+        self.points = points  # recorded, so that another scenario can see the run is unfinished
         self.digest, self.engines, self.replace = digest, engines, replace
         self.db: sqlite3.Connection | None = None
         self._lock_fd: int | None = None
@@ -109,6 +111,10 @@ class ResultsStore:
             self.db.execute(
                 "INSERT OR REPLACE INTO meta VALUES ('engines', ?)", (",".join(self.engines),)
             )
+            if self.points is not None:
+                self.db.execute(
+                    "INSERT OR REPLACE INTO meta VALUES ('points', ?)", (str(self.points),)
+                )
         self._claimed = True
 
     def done(self, engine: str) -> set[int]:
@@ -208,15 +214,35 @@ def discard_store(path: Path) -> None:
         Path(f"{path}{suffix}").unlink(missing_ok=True)
 
 
-def unfinished_run(path: Path, digest: str, points: int) -> bool:
-    """Whether the store at `path` is a run of scenario `digest` that misses some points."""
+def _stored_run(path: Path) -> tuple[dict[str, str], dict[str, int]] | None:
+    """The meta table and the points per engine of the store at `path` (None if unreadable)."""
     try:
         with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as db:
             meta = dict(db.execute("SELECT key, value FROM meta"))
-            if meta.get("digest") != digest:
-                return False
-            engines = [e for e in meta.get("engines", "").split(",") if e]
             counts = dict(db.execute("SELECT engine, COUNT(*) FROM points GROUP BY engine"))
     except sqlite3.Error:
-        return False
+        return None
+    return meta, counts
+
+
+def _misses_points(meta: dict[str, str], counts: dict[str, int], points: int) -> bool:
+    engines = [e for e in meta.get("engines", "").split(",") if e]
     return any(counts.get(e, 0) < points for e in engines)
+
+
+def unfinished_run(path: Path, digest: str, points: int) -> bool:
+    """Whether the store at `path` is a run of scenario `digest` that misses some points."""
+    stored = _stored_run(path)
+    if stored is None or stored[0].get("digest") != digest:
+        return False
+    return _misses_points(*stored, points)
+
+
+def unfinished_digest(path: Path) -> str | None:
+    """The content hash of the run in the store at `path` if, by the point count it recorded,
+    that run is unfinished (None if finished, unreadable or recorded no count)."""
+    stored = _stored_run(path)
+    if stored is None or not stored[0].get("points", "").isdigit():
+        return None
+    meta, counts = stored
+    return meta.get("digest") if _misses_points(meta, counts, int(meta["points"])) else None

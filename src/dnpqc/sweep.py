@@ -14,10 +14,12 @@ import multiprocessing
 import os
 import re
 import signal
+import socket
 import threading
 import time
 from collections.abc import Callable
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 
 import numpy as np
 
@@ -70,6 +72,34 @@ def check_scheduler_address(address: str) -> str:
     return address
 
 
+#: Largest plausible first message of a Dask scheduler (its handshake is about a kilobyte).
+_MAX_HANDSHAKE_BYTES = 2**24
+
+
+def probe_scheduler(address: str, timeout_s: float) -> None:
+    """Before the Dask client (which can wait without end), check within `timeout_s` that a
+    `tcp://` address answers as a Dask scheduler does: it sends a length-prefixed handshake
+    (8-byte little-endian length, distributed.comm.tcp) as soon as a client connects."""
+    match = re.fullmatch(r"tcp://\[?([^\]]+)\]?:(\d+)", address)
+    if match is None:  # tls: the server speaks only after the client's hello
+        return
+    try:
+        with socket.create_connection((match.group(1), int(match.group(2))), timeout_s) as sock:
+            sock.settimeout(timeout_s)
+            prelude = sock.recv(8, socket.MSG_WAITALL)
+    except OSError as exc:
+        why = "it did not answer" if isinstance(exc, TimeoutError) else exc.strerror or str(exc)
+        raise RunError(
+            f"`--scheduler` {address!r}: no Dask scheduler answered there ({why})"
+        ) from None
+    length = int.from_bytes(prelude, "little") if len(prelude) == 8 else None
+    if length is None or not 0 < length < _MAX_HANDSHAKE_BYTES:
+        raise RunError(
+            f"`--scheduler` {address!r}: something answered, but not a Dask scheduler "
+            f"(first bytes {prelude[:8]!r})"
+        )
+
+
 def _executor(workers: int, scheduler: str | None):
     if scheduler is not None:
         check_scheduler_address(scheduler)
@@ -79,6 +109,7 @@ def _executor(workers: int, scheduler: str | None):
             raise ScenarioError(
                 "`--scheduler` needs the Dask distributed package: pip install 'dnpqc[cluster]'"
             ) from None
+        probe_scheduler(scheduler, CONNECT_TIMEOUT_S)
         try:
             return _DaskExecutor(Client(scheduler, timeout=CONNECT_TIMEOUT_S))
         except (OSError, TimeoutError, MemoryError, ValueError) as exc:
@@ -194,9 +225,30 @@ def _run_parallel(targets, options, tasks, executor, finish) -> None:
         while remaining:
             finished, remaining = _wait_any(remaining)
             for future in finished:
-                finish(pending[future], *future.result())
+                finish(pending[future], *_task_result(future))
     finally:
         executor.shutdown(cancel_futures=True)
+
+
+def _task_result(future):
+    """A finished task's result; a dead worker or a lost cluster becomes one RunError (what
+    finished is in the store), while user errors raised by the task pass through."""
+    try:
+        return future.result()
+    except (ScenarioError, RunError, KeyboardInterrupt):
+        raise
+    except BrokenProcessPool:
+        raise RunError(
+            "a worker process died (out of memory?); the finished points are stored: "
+            "continue with --resume"
+        ) from None
+    except Exception as exc:
+        if not hasattr(future, "key"):  # a local task: a genuine error, shown in full
+            raise
+        raise RunError(
+            f"the Dask cluster failed ({type(exc).__name__}: {str(exc)[:120]}); the finished "
+            "points are stored: continue with --resume"
+        ) from None
 
 
 def _keep(memory, engine, indices, pol, err) -> None:
