@@ -392,9 +392,10 @@ def scenario_from_dict(
     imperfections = _read_imperfections(top.table("imperfections"))
     noise = _read_noise(top.table("noise"))
     typical_table = top.table("typical") or _Table({}, "typical")
+    d = TypicalSettings()
     typical = TypicalSettings(
-        states=typical_table.integer("states", 32, minimum=2, maximum=MAX_TYPICAL_STATES),
-        seed=typical_table.integer("seed", 0, minimum=0, maximum=MAX_SEED),
+        states=typical_table.integer("states", d.states, minimum=2, maximum=MAX_TYPICAL_STATES),
+        seed=typical_table.integer("seed", d.seed, minimum=0, maximum=MAX_SEED),
     )
     typical_table.finish()
     compile_settings = _read_compile(top.table("compile") or _Table({}, "compile"))
@@ -433,13 +434,16 @@ def _read_imperfections(t: _Table | None) -> Imperfections:
     """`[imperfections]`: Gaussian σ of the NV detuning (Hz) and of the relative drive error."""
     if t is None:
         return Imperfections()
+    d = Imperfections()
     out = Imperfections(
-        detuning_sigma_hz=t.number("detuning_sigma_hz", 0.0, minimum=0.0, maximum=MAX_FREQUENCY_HZ),
-        drive_sigma_rel=t.number("drive_sigma_rel", 0.0, minimum=0.0),
-        method=t.string("method", "quadrature", choices=("quadrature", "sampling")),
-        points=t.integer("points", 3, minimum=1, maximum=MAX_QUADRATURE_POINTS),
-        samples=t.integer("samples", 16, minimum=2, maximum=MAX_SAMPLES),
-        seed=t.integer("seed", 0, minimum=0, maximum=MAX_SEED),
+        detuning_sigma_hz=t.number(
+            "detuning_sigma_hz", d.detuning_sigma_hz, minimum=0.0, maximum=MAX_FREQUENCY_HZ
+        ),
+        drive_sigma_rel=t.number("drive_sigma_rel", d.drive_sigma_rel, minimum=0.0),
+        method=t.string("method", d.method, choices=("quadrature", "sampling")),
+        points=t.integer("points", d.points, minimum=1, maximum=MAX_QUADRATURE_POINTS),
+        samples=t.integer("samples", d.samples, minimum=2, maximum=MAX_SAMPLES),
+        seed=t.integer("seed", d.seed, minimum=0, maximum=MAX_SEED),
     )
     if out.drive_sigma_rel >= 0.5:
         raise ScenarioError(
@@ -454,12 +458,13 @@ def _read_noise(t: _Table | None) -> NoiseSettings:
     """`[noise]`: error scale, simulation method, trajectories, seed, idle noise."""
     if t is None:
         return NoiseSettings()
+    d = NoiseSettings()
     out = NoiseSettings(
-        scale=t.number("scale", 1.0, minimum=0.0, maximum=1e6),
-        method=t.string("method", "auto", choices=("auto", "density_matrix", "trajectories")),
-        trajectories=t.integer("trajectories", 256, minimum=2, maximum=MAX_TRAJECTORIES),
-        seed=t.integer("seed", 0, minimum=0, maximum=MAX_SEED),
-        idle=t.boolean("idle", True),
+        scale=t.number("scale", d.scale, minimum=0.0, maximum=1e6),
+        method=t.string("method", d.method, choices=("auto", "density_matrix", "trajectories")),
+        trajectories=t.integer("trajectories", d.trajectories, minimum=2, maximum=MAX_TRAJECTORIES),
+        seed=t.integer("seed", d.seed, minimum=0, maximum=MAX_SEED),
+        idle=t.boolean("idle", d.idle),
     )
     t.finish()
     return out
