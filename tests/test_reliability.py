@@ -4,6 +4,7 @@ left half-written, nothing lands outside the out folder, no work starts before t
 import json
 import os
 import sqlite3
+import sys
 
 import numpy as np
 import openqasm3
@@ -490,3 +491,26 @@ def test_typical_work_grows_with_the_window_not_the_steps(tiny, capsys, no_work)
     assert sweep_work(sc, "typical") > 1e11 > 1e6 > sweep_work(sc, "exact")
     tiny.write_text(long)
     one_line_exit_2(["sweep", str(tiny), "--engine", "typical"], capsys, "more than --max-work")
+
+
+def test_a_closed_standard_output_is_one_line(tiny, tmp_path, capsys, monkeypatch):
+    # `dnpqc compile ... | head -c 10`: the reader went away, so writing stdout raises
+    # BrokenPipeError; the command ends in one line on stderr and exit code 2, and stdout is
+    # pointed at /dev/null so the final flush cannot fail again (Python docs, "Note on SIGPIPE")
+    sink = (tmp_path / "stdout").open("w")
+
+    class ClosedPipe:
+        def write(self, text):
+            raise BrokenPipeError(32, "Broken pipe")
+
+        def flush(self):
+            pass
+
+        def fileno(self):
+            return sink.fileno()
+
+    monkeypatch.setattr(sys, "stdout", ClosedPipe())
+    assert main(["compile", str(tiny)]) == 2
+    err = capsys.readouterr().err
+    assert err == "dnpqc: error: standard output was closed before the end\n", err
+    sink.close()

@@ -231,3 +231,54 @@ def test_ctrl_c_of_a_pooled_run_is_one_line(tmp_path):
     err = proc.communicate(timeout=60)[1]
     assert proc.returncode == 130, err
     assert err.count("\n") == 1 and "points stored; the rest runs with --resume" in err, err
+
+
+CLUSTER_SCRIPT = """
+import time
+from distributed import LocalCluster
+if __name__ == "__main__":
+    cluster = LocalCluster(n_workers=1, threads_per_worker=1, host="127.0.0.1",
+                           dashboard_address=None, processes=True)
+    print(cluster.scheduler_address, flush=True)
+    time.sleep(600)
+"""
+
+
+def test_a_scheduler_killed_mid_run_ends_in_one_line(tmp_path):
+    # a loopback Dask cluster in a session of its own is SIGKILLed once the run has stored its
+    # first points: the run ends with exit code 2, one line, and keeps what finished
+    pytest.importorskip("distributed")
+    script = tmp_path / "cluster.py"
+    script.write_text(CLUSTER_SCRIPT)
+    cluster = subprocess.Popen(
+        [sys.executable, str(script)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.DEVNULL,
+        text=True,
+        start_new_session=True,
+    )
+    try:
+        address = cluster.stdout.readline().strip()
+        assert address.startswith("tcp://127.0.0.1:"), address
+        path = tmp_path / "k.toml"
+        path.write_text(KILLABLE.replace("points = 30", "points = 150"))
+        out = tmp_path / "out"
+        args = ["run", str(path), "--out", str(out), "--engines", "exact", "--scheduler", address]
+        run = subprocess.Popen(
+            [sys.executable, "-m", "dnpqc.cli", *args],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        deadline = time.time() + 120
+        while _rows(out / STORE_NAME) < 1 and time.time() < deadline and run.poll() is None:
+            time.sleep(0.1)
+        assert _rows(out / STORE_NAME) >= 1, run.poll() is None or run.communicate()[1]
+    finally:
+        os.killpg(cluster.pid, signal.SIGKILL)
+        cluster.wait()
+    err = run.communicate(timeout=120)[1]
+    assert run.returncode == 2, err
+    assert err.count("\n") == 1 and "the Dask cluster failed" in err, err
+    assert "continue with --resume" in err
+    assert _rows(out / STORE_NAME) >= 1

@@ -9,6 +9,7 @@ finished is in the store and `--resume` computes only the rest.
 
 from __future__ import annotations
 
+import logging
 import math
 import multiprocessing
 import os
@@ -110,6 +111,7 @@ def _executor(workers: int, scheduler: str | None):
                 "`--scheduler` needs the Dask distributed package: pip install 'dnpqc[cluster]'"
             ) from None
         probe_scheduler(scheduler, CONNECT_TIMEOUT_S)
+        _quiet_dask_logs()
         try:
             return _DaskExecutor(Client(scheduler, timeout=CONNECT_TIMEOUT_S))
         except (OSError, TimeoutError, MemoryError, ValueError) as exc:
@@ -159,9 +161,28 @@ def _wait_any(futures: set):
     if futures and hasattr(next(iter(futures)), "key"):  # Dask futures
         from distributed import wait as dask_wait
 
-        done = dask_wait(futures, return_when="FIRST_COMPLETED").done
+        try:
+            done = dask_wait(futures, return_when="FIRST_COMPLETED").done
+        except Exception as exc:  # the cluster went away: its futures were cancelled
+            raise _cluster_failed(exc) from None
         return done, futures - done
     return wait(futures, return_when=FIRST_COMPLETED)
+
+
+def _quiet_dask_logs() -> None:
+    """A lost scheduler is reported once, as one line (`_cluster_failed`), not also by the
+    Dask client's own multi-line error logs (its loggers set their own levels)."""
+    for name in list(logging.root.manager.loggerDict):
+        if name == "distributed" or name.startswith("distributed."):
+            logging.getLogger(name).setLevel(logging.CRITICAL + 1)
+
+
+def _cluster_failed(exc: Exception) -> RunError:
+    first = str(exc).strip().splitlines()[0][:120] if str(exc).strip() else ""
+    return RunError(
+        f"the Dask cluster failed ({type(exc).__name__}: {first}); the finished points are "
+        "stored: continue with --resume"
+    )
 
 
 def run_engines(
@@ -245,10 +266,7 @@ def _task_result(future):
     except Exception as exc:
         if not hasattr(future, "key"):  # a local task: a genuine error, shown in full
             raise
-        raise RunError(
-            f"the Dask cluster failed ({type(exc).__name__}: {str(exc)[:120]}); the finished "
-            "points are stored: continue with --resume"
-        ) from None
+        raise _cluster_failed(exc) from None
 
 
 def _keep(memory, engine, indices, pol, err) -> None:
