@@ -29,10 +29,8 @@ from dataclasses import dataclass
 import networkx as nx
 from qiskit import QuantumCircuit
 
-from .mapping import MappedProgram
+from .mapping import MappedProgram, split_segments
 from .processor import VIRTUAL_GATES, Processor
-
-SKIPPED = frozenset({"barrier", "save_probabilities", "save_density_matrix", "delay"})
 
 
 @dataclass(frozen=True)
@@ -65,18 +63,6 @@ class SegmentCost:
             "idle_s": {str(q): t for q, t in sorted(self.idle_s.items())},
             "success_estimate": self.success_estimate,
         }
-
-
-def split_segments(circuit: QuantumCircuit) -> list[list]:
-    """Instructions between full-width barriers (saves, delays and barriers dropped)."""
-    segments: list[list] = [[]]
-    for inst in circuit.data:
-        name = inst.operation.name
-        if name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
-            segments.append([])
-        elif name not in SKIPPED:
-            segments[-1].append(inst)
-    return segments
 
 
 class AsapClock:

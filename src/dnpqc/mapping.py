@@ -146,15 +146,26 @@ def _two_qubit_count(circuit: QuantumCircuit) -> int:
     )
 
 
+#: Instructions that take no part in a segment's work: barriers, simulator saves, delays.
+SKIPPED = frozenset({"barrier", "save_probabilities", "save_density_matrix", "delay"})
+
+
+def split_segments(circuit: QuantumCircuit) -> list[list]:
+    """Instructions between full-width barriers (saves, delays and barriers dropped): the
+    preparation, then each cycle."""
+    segments: list[list] = [[]]
+    for inst in circuit.data:
+        name = inst.operation.name
+        if name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
+            segments.append([])
+        elif name not in SKIPPED:
+            segments[-1].append(inst)
+    return segments
+
+
 def _segment_counts(circuit: QuantumCircuit, name: str) -> list[int]:
     """Count of `name` per segment between full-width barriers."""
-    counts = [0]
-    for inst in circuit.data:
-        if inst.operation.name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
-            counts.append(0)
-        elif inst.operation.name == name:
-            counts[-1] += 1
-    return counts
+    return [sum(inst.operation.name == name for inst in seg) for seg in split_segments(circuit)]
 
 
 def _transpile(circuit, target, layout, level, seed):
@@ -209,7 +220,7 @@ def map_program(
     layout = circuit.layout
     initial = tuple(region[i] for i in layout.initial_index_layout(filter_ancillas=True))
     final = tuple(region[i] for i in layout.final_index_layout(filter_ancillas=True))
-    segments = len(_segment_counts(circuit, "barrier"))
+    segments = len(split_segments(circuit))
     swaps = tuple(swaps + [0] * (segments - len(swaps))) if swaps else (0,) * segments
     return MappedProgram(processor, tuple(region), circuit, initial, final, winner, counts, swaps)
 
