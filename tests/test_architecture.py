@@ -15,9 +15,27 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "dnpqc"
 STAGES = {
     "base": {"constants", "errors", "limits", "resources", "output", "results", "imperfections"},
     "physics": {"model", "lattice", "protocols", "propagation", "expr"},
-    "compile": {"trotter", "processor", "mapping", "program", "budget", "noise", "strategy"},
+    "compile": {
+        "trotter",
+        "processor",
+        "mapping",
+        "program",
+        "budget",
+        "noise",
+        "strategy",
+        "folding",
+    },
     "engines": {"engines"},
-    "analysis": {"codesign", "verdicts", "report", "qasm", "store", "sweep"},
+    "analysis": {
+        "codesign",
+        "verdicts",
+        "report",
+        "qasm",
+        "store",
+        "sweep",
+        "counts",
+        "mitigation",
+    },
     "edges": {"scenario", "job", "cli", "__init__"},
 }
 ORDER = list(STAGES)

@@ -121,8 +121,10 @@ def segment_cost(
     for inst in instructions:
         name = inst.operation.name
         phys = [region[circuit.find_bit(q).index] for q in inst.qubits]
-        duration = processor.gate_duration_s(name)
+        duration = processor.instruction_duration_s(inst.operation)
         clock.place(phys, duration)
+        if name == "delay":
+            continue  # waiting: idle time, charged with T1 and T2 below
         d = max(depth[q] for q in phys) + 1
         d2 = max(depth2[q] for q in phys) + (len(phys) == 2)
         for q in phys:
@@ -230,6 +232,12 @@ def gate_budget(mapped: MappedProgram) -> dict[str, object]:
         "readout": readout.to_dict(),
         "total": total.to_dict(),
     }
+
+
+def segment_durations_s(mapped: MappedProgram) -> list[float]:
+    """ASAP duration (s) of each segment of the mapped circuit: preparation, then each cycle."""
+    proc, circ, region = mapped.processor, mapped.circuit, mapped.region
+    return [segment_cost(seg, circ, region, proc).duration_s for seg in split_segments(circ)]
 
 
 def costliest_budget(mapped: list[MappedProgram]) -> dict[str, object]:

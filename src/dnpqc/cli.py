@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import sys
 from dataclasses import replace
@@ -12,11 +13,28 @@ from tqdm import tqdm
 
 from . import codesign, output, qasm, report, verdicts
 from .budget import gate_budget
-from .engines import ENGINE_ALIASES, ENGINES, engine_name
+from .counts import read_counts
+from .engines import ENGINE_ALIASES, ENGINES, engine_name, simulate_program
 from .engines.noisy import BASELINE_ENGINE
 from .errors import RunError, ScenarioError
-from .job import RunOutcome, run_scenario, scenario_processor, scenario_programs, simulate
+from .folding import BASELINE, PROGRAM, check_scale, program_variants
+from .job import (
+    RunOutcome,
+    engine_options,
+    run_scenario,
+    sampled_counts,
+    scenario_processor,
+    scenario_programs,
+    simulate,
+)
 from .limits import DEFAULT_MAX_WORK, check_program_size, check_work
+from .mitigation import (
+    EXTRAPOLATIONS,
+    MitigationSettings,
+    available,
+    check_available,
+    parse_mitigations,
+)
 from .processor import Processor, make_processor, processor_for_spec
 from .program import Program
 from .resources import cores, threads_per_worker
@@ -102,6 +120,24 @@ def _parser() -> argparse.ArgumentParser:
         "scenario has a [processor] table; noisy brings its zero-transfer baseline "
         "noisy-baseline)",
     )
+    run.add_argument(
+        "--counts",
+        default=None,
+        help="measured counts of the exported programs (JSON, see README 'From program to "
+        "measured answer'): adds the engine `measured` to the report",
+    )
+    run.add_argument(
+        "--mitigate",
+        default="auto",
+        help="with --counts: auto (every mitigation the counts allow), none, or a list of "
+        "readout,baseline,zne",
+    )
+    run.add_argument(
+        "--extrapolation",
+        default="richardson",
+        choices=EXTRAPOLATIONS,
+        help="zero-noise extrapolation fit (default richardson)",
+    )
     budget = sub.add_parser("budget", help="gate budget of the program on a processor")
     budget.add_argument("scenario", help="scenario TOML file")
     budget.add_argument(
@@ -121,6 +157,17 @@ def _parser() -> argparse.ArgumentParser:
         default=None,
         help="advise the fewest Trotter steps with Trotter error below this; with "
         'strategy "auto", choose the fewest two-qubit gates with approximation error below it',
+    )
+    budget.add_argument(
+        "--target-stderr",
+        type=float,
+        default=0.01,
+        help="standard error on P that the shot plan aims at (default 0.01)",
+    )
+    budget.add_argument(
+        "--no-shots",
+        action="store_true",
+        help="skip the shot plan (it runs the exact and noisy engines)",
     )
     budget.add_argument(
         "--scaling",
@@ -148,13 +195,102 @@ def _parser() -> argparse.ArgumentParser:
         action="store_true",
         help="measure the nuclei after every cycle into registers cycle_<c>",
     )
+    comp.add_argument(
+        "--baseline",
+        action="store_true",
+        help="write the baseline program: the same program with every coupling set to zero",
+    )
+    comp.add_argument(
+        "--fold",
+        type=_scale,
+        default=1,
+        help="write the program with each two-qubit gate G folded to G(G†G)^k, scale 2k+1 "
+        "(3, 5, ...), for zero-noise extrapolation",
+    )
     sweep = sub.add_parser("sweep", help="one engine over the sweep, JSON out")
     sweep.add_argument("scenario", help="scenario TOML file")
     sweep.add_argument("--engine", default="exact", choices=(*ENGINES, *ENGINE_ALIASES))
     sweep.add_argument("--json", default=None, help="write the JSON here (default: stdout)")
+    sweep.add_argument(
+        "--shots",
+        type=int,
+        default=None,
+        help="with --counts-out: shots per program and sweep value",
+    )
+    sweep.add_argument(
+        "--counts-out",
+        default=None,
+        help="write sampled counts of the exported programs here (the format of run --counts)",
+    )
+    sweep.add_argument("--seed", type=int, default=0, help="seed of the sampled counts")
+    sweep.add_argument(
+        "--measure-each-cycle",
+        action="store_true",
+        help="with --counts-out: sample the programs that read the nuclei after every cycle",
+    )
+    sweep.add_argument(
+        "--baseline",
+        action="store_true",
+        help="with --counts-out: also sample the baseline program (couplings zero)",
+    )
+    sweep.add_argument(
+        "--fold",
+        default=None,
+        help="with --counts-out: also sample the programs folded to these scales, e.g. 3,5",
+    )
     for command in (run, sweep):
         _add_max_work(command)
     return parser
+
+
+def _scale(text: str) -> int:
+    try:
+        return check_scale(int(text))
+    except (ValueError, ScenarioError):
+        raise argparse.ArgumentTypeError(
+            f"`--fold` must be an odd whole number >= 1 (3, 5, ...), got {text!r}"
+        ) from None
+
+
+def _scales(text: str | None) -> tuple[int, ...]:
+    if text is None:
+        return ()
+    parts = [t.strip() for t in text.split(",") if t.strip()]
+    try:
+        scales = tuple(sorted({check_scale(int(t)) for t in parts}))
+    except ValueError:
+        scales = ()
+    if not scales or len(scales) != len(parts):
+        raise ScenarioError(
+            f"`--fold` must list distinct odd whole numbers >= 3, e.g. 3,5; got {text!r}"
+        )
+    return scales
+
+
+def _read_json(path: str, option: str) -> object:
+    """A strict JSON file (no NaN or Infinity), or a one-line refusal."""
+
+    def refuse(constant: str) -> None:
+        raise ValueError(f"{constant} is not JSON")
+
+    try:
+        with open(path, encoding="utf-8") as handle:
+            return json.load(handle, parse_constant=refuse)
+    except OSError as exc:
+        raise ScenarioError(f"`{option}`: cannot read {path!r}: {exc.strerror}") from None
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise ScenarioError(f"`{option}`: {path!r} is not valid JSON: {exc}") from None
+
+
+def _measured(args, scenario: Scenario):
+    """The checked counts of `--counts` and the mitigation to apply, or None."""
+    if args.counts is None:
+        return None
+    counts = read_counts(_read_json(args.counts, "--counts"), scenario.workload())
+    steps = parse_mitigations(args.mitigate)
+    steps = available(counts) if steps is None else steps
+    check_available(steps, counts)
+    return counts, MitigationSettings(steps, args.extrapolation)
 
 
 def _scenario(path: str | None) -> Scenario:
@@ -240,6 +376,7 @@ def _cmd_run(args) -> int:
     if "noisy" in engines and BASELINE_ENGINE not in engines:
         engines += (BASELINE_ENGINE,)  # the comparison subtracts the measured artefact
     out = _check_run_destination(args, scenario)
+    measured = _measured(args, scenario)
     workers = _workers(args.workers)
     if args.scheduler is not None:
         check_scheduler_address(args.scheduler)
@@ -255,6 +392,7 @@ def _cmd_run(args) -> int:
                 workers=workers,
                 scheduler=args.scheduler,
                 on_point=lambda e, k: bars[e].update(k),
+                measured=measured,
             )
         finally:
             for bar in bars.values():
@@ -342,7 +480,7 @@ def write_run(outcome: RunOutcome, out: Path) -> None:
     shown = [
         r for name, r in outcome.results.items() if name != "trotter" or len(outcome.results) < 3
     ]
-    fits = {r.engine: saturation(r, point)["per_nucleus"] for r in shown}
+    fits = {r.engine: saturation(r, point)["per_nucleus"] for r in shown if r.has_buildup}
     figures = {
         "spectrum.png": report.spectrum_figure(ref, outcome.resonances()),
         "buildup.png": report.buildup_figure(shown, point, fits),
@@ -364,6 +502,7 @@ def _cmd_sweep(args) -> int:
     scenario = load_scenario(args.scenario)
     engine = engine_name(args.engine)
     destination = output.check_file(args.json, "--json") if args.json is not None else None
+    counts_out = _check_counts_out(args, engine)
     _check_engines_work(scenario, (engine,), args.max_work, f"the {engine} sweep")
     note = default_processor_note(scenario, (engine,))
     if note:
@@ -374,6 +513,25 @@ def _cmd_sweep(args) -> int:
     finally:
         bar.close()
     data = result.to_dict()
+    counts = None
+    if counts_out is not None:
+        scales = _scales(args.fold)
+        programs = (1 + args.baseline) * (1 + len(scales))
+        bar = _progress(programs * len(scenario.sweep.values), "counts")
+        try:
+            counts = sampled_counts(
+                scenario,
+                engine,
+                args.shots,
+                seed=args.seed,
+                measure_each_cycle=args.measure_each_cycle,
+                baseline=args.baseline,
+                scales=scales,
+                on_point=bar.update,
+            )
+        finally:
+            bar.close()
+        output.write_json(counts_out, counts)
     if destination is not None:
         output.write_json(destination, data)
     else:
@@ -381,9 +539,32 @@ def _cmd_sweep(args) -> int:
     return 0
 
 
+def _check_counts_out(args, engine: str) -> Path | None:
+    """The `--counts-out` file (checked now), with its options checked; None without it."""
+    extras = args.measure_each_cycle or args.baseline or args.fold is not None
+    if args.counts_out is None:
+        if args.shots is not None or extras:
+            raise ScenarioError(
+                "`--shots`, `--measure-each-cycle`, `--baseline` and `--fold` of `sweep` "
+                "shape sampled counts: give `--counts-out FILE`"
+            )
+        return None
+    if engine not in ("noisy", "trotter"):
+        raise ScenarioError(
+            f"`--counts-out` samples a run of the exported programs: use --engine noisy (or "
+            f"trotter, noiseless), not {engine}"
+        )
+    if args.shots is None or args.shots < 1:
+        raise ScenarioError(f"`--counts-out` needs `--shots N` with N >= 1, got {args.shots}")
+    _scales(args.fold)
+    return output.check_file(args.counts_out, "--counts-out")
+
+
 def _cmd_budget(args) -> int:
     scenario = load_scenario(args.scenario)
     destination = output.check_file(args.json, "--json") if args.json is not None else None
+    if not 0 < args.target_stderr < 1:
+        raise ScenarioError(f"`--target-stderr` must be > 0 and < 1, got {args.target_stderr:g}")
     if args.target_error is not None and not 0 < args.target_error < float("inf"):
         raise ScenarioError(f"`--target-error` must be > 0 and finite, got {args.target_error:g}")
     if args.target_error is not None and scenario.compile.strategy == "auto":
@@ -418,14 +599,30 @@ def _cmd_budget(args) -> int:
     if args.scaling:
         with _progress(4 * 12, "scaling") as bar:  # the default 4 graphs × 1..12 nuclei
             data["scaling"] = codesign.scaling_table(job, processor, on_step=lambda: bar.update(1))
+    if not args.no_shots:
+        data["shots"] = _shot_plan(scenario, programs, processor, data, args.target_stderr)
     data["warnings"] = verdicts.budget_warnings(data)
     if destination is not None:
         output.write_json(destination, data)
     for line in report.budget_lines(data):
         print(output.one_line(line))
+    for line in report.shot_lines(data["shots"]) if "shots" in data else []:
+        print(output.one_line(line))
     for warning in data["warnings"]:
         print(output.one_line(f"! {warning}"))
     return 0
+
+
+def _shot_plan(scenario: Scenario, programs: Programs, processor, budget: dict, stderr: float):
+    """The shot plan of the budget, from the exact engine and the noisy program with its
+    zero-transfer baseline on `processor`."""
+    options = engine_options(scenario)
+    with _progress(None, "shot plan") as bar:
+        exact = simulate_program(programs.job.workload, "exact", options, on_point=bar.update)
+        noisy_program = programs.mapped(processor)
+        noisy = simulate_program(noisy_program, "noisy", options, on_point=bar.update)
+        base = simulate_program(noisy_program, BASELINE_ENGINE, options, on_point=bar.update)
+    return codesign.shot_plan(exact, noisy, base, budget, processor, stderr)
 
 
 def compile_texts(
@@ -433,20 +630,39 @@ def compile_texts(
     *,
     bind: float | None = None,
     measure_each_cycle: bool = False,
+    variant: list[str] | None = None,
 ) -> list[tuple[float | None, str]]:
     """(swept value, OpenQASM 3 text) of each hardware program of a mapped, nominal program.
 
     A trotter program gives one text (with the swept quantity as an input unless `bind`); a
-    per-value program one text per sweep value, each bound to its value.
+    per-value program one text per sweep value, each bound to its value; `variant` lines say
+    what the program is (a baseline, a folded copy).
     """
     texts = []
     for value, mapped in zip(_row_values(program, bind), program.mapped, strict=True):
         hardware = qasm.hardware_program(
             mapped, measure_each_cycle=measure_each_cycle, bind=None if program.per_row else value
         )
-        header = qasm.header_lines(program, mapped, gate_budget(mapped), value)
+        header = qasm.header_lines(program, mapped, gate_budget(mapped), value, variant)
         texts.append((value, qasm.dumps(hardware, header)))
     return texts
+
+
+def _variant_lines(program: Program, args) -> list[str]:
+    """Header lines of a baseline or folded program (empty for the program itself)."""
+    lines = []
+    if args.baseline:
+        lines.append(
+            f"Variant: {program.choice}; its measured P is the processor's own drift, to "
+            "subtract (`run --counts` with `baseline_counts`)."
+        )
+    if args.fold > 1:
+        lines.append(
+            f"Variant: two-qubit gates folded to scale {args.fold} (G -> G(G†G)^"
+            f"{(args.fold - 1) // 2}, fenced by barriers: submit without further optimization, "
+            "or a compiler may cancel the folds)."
+        )
+    return lines
 
 
 def _row_values(program: Program, bind: float | None) -> list[float | None]:
@@ -518,9 +734,18 @@ def _cmd_compile(args) -> int:
     destination = None
     if folder is None and args.output is not None:
         destination = output.check_file(args.output, "-o")
-    check_program_size(program_gates(scenario))
+    check_program_size(program_gates(scenario) * args.fold)
     program = _hardware_program(scenario, processor, args.bind)
-    texts = compile_texts(program, bind=args.bind, measure_each_cycle=args.measure_each_cycle)
+    variants = program_variants(
+        program, scenario.compile_job().mapping, baseline=args.baseline, scales=(args.fold,)
+    )
+    program = variants[(BASELINE if args.baseline else PROGRAM, args.fold)]
+    texts = compile_texts(
+        program,
+        bind=args.bind,
+        measure_each_cycle=args.measure_each_cycle,
+        variant=_variant_lines(program, args),
+    )
     if program.per_row and args.bind is None:
         if folder is None:
             raise ScenarioError(

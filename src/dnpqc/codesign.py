@@ -192,3 +192,68 @@ def scaling_table(
         "per_added_nucleus": increment,
         "steps_per_cycle": job.trotter.steps,
     }
+
+
+#: A peak counts as detectable when its expected contrast exceeds this many standard errors.
+DETECTION_SIGMAS = 3.0
+
+
+def shot_plan(
+    exact: SweepResult,
+    noisy: SweepResult,
+    baseline: SweepResult,
+    budget: dict,
+    processor: Processor,
+    target_stderr: float,
+) -> dict[str, object]:
+    """Shots per sweep value for a standard error `target_stderr` on every P, the processor
+    time of the sweep, and whether each exact peak stands out of the noise.
+
+    N = ceil(max (1 - P²)/σ²) over cycles and nuclei, P the noisy engine's expected value (the
+    binomial error of a ±1 mean; common practice, no source). A shot lasts the program
+    (`budget` total, final readout included) plus the initial reset of the qubits. A peak's
+    contrast is |P_noisy - P_baseline| at the exact peak (the zero-transfer baseline of the same
+    program), detectable above DETECTION_SIGMAS·sqrt(σ_P² + σ_B²), both measured with N shots.
+    """
+    spread = np.clip(1.0 - noisy.polarization**2, 0.0, None)  # (points, cycles, n)
+    shots = np.maximum(np.ceil(spread.max(axis=(1, 2)) / target_stderr**2), 1).astype(int)
+    per_shot_s = float(budget["total"]["duration_s"]) + processor.time_reset_s
+    gain = 1.0 - 2.0 * min(0.5, processor.error_readout)
+    peaks_out = []
+    for j, label in enumerate(exact.nuclei):
+        i = int(np.argmax(np.abs(exact.polarization[:, -1, j])))
+        p, b = noisy.polarization[i, -1, j], baseline.polarization[i, -1, j]
+        sigma = math.sqrt(max(0.0, 1 - p**2) / shots[i] + max(0.0, 1 - b**2) / shots[i])
+        contrast = abs(p - b)
+        peaks_out.append(
+            {
+                "nucleus": label,
+                "value": float(exact.values[i]),
+                "exact_polarization": float(exact.polarization[i, -1, j]),
+                "noisy_polarization": float(p),
+                "baseline_polarization": float(b),
+                "contrast": contrast,
+                "stderr": sigma,
+                "sigmas": contrast / sigma if sigma > 0 else float("inf"),
+                "detectable": bool(contrast > DETECTION_SIGMAS * sigma),
+            }
+        )
+    return {
+        "target_stderr": target_stderr,
+        "engine": noisy.engine,
+        "per_value": [
+            {"value": float(v), "shots": int(n)} for v, n in zip(exact.values, shots, strict=True)
+        ],
+        "max_shots_per_value": int(shots.max()),
+        "total_shots": int(shots.sum()),
+        "per_shot_s": per_shot_s,
+        "per_shot": {
+            "program_s": float(budget["total"]["duration_s"]),
+            "initial_reset_s": processor.time_reset_s,
+        },
+        "total_time_s": float(shots.sum() * per_shot_s),
+        "readout_inversion_shot_factor": 1.0 / gain**2 if gain > 0 else float("inf"),
+        "peaks": peaks_out,
+        "all_detectable": all(p["detectable"] for p in peaks_out),
+        "detection_sigmas": DETECTION_SIGMAS,
+    }

@@ -8,14 +8,19 @@ from dataclasses import dataclass
 import numpy as np
 
 from .codesign import compare_processors, measured_trotter_error, program_budget
+from .counts import MeasuredCounts, counts_json, sample_counts
 from .engines import NOISY_ENGINES, EngineOptions, engine_name, simulate_program
 from .engines.noisy import BASELINE_ENGINE
+from .engines.shots import readout_confusion, readout_distributions
+from .errors import ScenarioError
+from .folding import program_variants
+from .mitigation import Mitigated, MitigationSettings, mitigate
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import Processor, make_processor, processor_for_spec
 from .program import Program, Workload
 from .protocols import expected_resonances
 from .report import count_of, format_value
-from .results import SweepResult, best_common, peaks, saturation
+from .results import MEASURED_ENGINE, SweepResult, best_common, peaks, saturation
 from .scenario import Scenario, dnpqc_version, scenario_settings
 from .store import ResultsStore
 from .strategy import Programs, StrategyRow
@@ -99,6 +104,7 @@ class RunOutcome:
     budget: dict[str, object] | None = None
     compare: list[dict[str, object]] | None = None
     strategies: tuple[StrategyRow, ...] = ()
+    measured: Mitigated | None = None
 
     @property
     def reference(self) -> SweepResult:
@@ -115,12 +121,13 @@ class RunOutcome:
         )
 
     def analysis(self, engine: str) -> dict[str, object]:
+        """Peaks, best common value and (with every cycle from the first) saturation."""
         res = self.results[engine]
         common = best_common(res)
         return {
             "peaks": peaks(res),
             "best_common": common,
-            "saturation": saturation(res, common["index"]),
+            "saturation": saturation(res, common["index"]) if res.has_buildup else None,
         }
 
     def comparison(self, engine: str) -> dict[str, object]:
@@ -128,13 +135,18 @@ class RunOutcome:
         minus the zero-transfer baseline of the same noisy program, edge peaks never found."""
         ref, other = self.analysis(self.reference.engine), self.analysis(engine)
         baseline = self.results.get(BASELINE_ENGINE) if engine == "noisy" else None
+        subtracted = None
+        if engine == MEASURED_ENGINE and self.measured and "baseline" in self.measured.applied:
+            subtracted = "the measured baseline program (couplings zero), subtracted in mitigation"
         out = compare_to_exact(
             self.reference,
             self.results[engine],
             baseline=baseline,
             best_common=(ref["best_common"]["value"], other["best_common"]["value"]),
+            subtracted=subtracted,
         )
-        out["saturation"] = other["saturation"]["mean_saturation"]
+        sat = other["saturation"]
+        out["saturation"] = sat["mean_saturation"] if sat is not None else None
         return out
 
     def comparisons(self) -> list[dict[str, object]]:
@@ -157,6 +169,13 @@ class RunOutcome:
         value = error["value"] if error else None
         out = run_warnings(self.scenario.workload(), self.reference, trotter_error=value)
         out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
+        if self.measured is not None and "baseline" in self.measured.applied:
+            out.append(
+                "measured: the baseline subtracted is the drift of the uncoupled program over the "
+                "program's time; where the program's dynamics carry drift to the reset NV it "
+                "overshoots (README 'From program to measured answer'); compare with "
+                "--mitigate readout,zne"
+            )
         return out
 
     def compiler(self) -> dict[str, object]:
@@ -250,8 +269,35 @@ class RunOutcome:
                 out["budget"] = {**self.budget, "trotter_error": self.trotter_error()}
         if self.compare:
             out["compare"] = self.compare
+        if self.measured is not None:
+            out["measured"] = self.measured_json()
         out["warnings"] = self.warnings()
         return out
+
+    def measured_json(self) -> dict[str, object]:
+        """What was measured and done to it: mitigation, raw values, the error against exact."""
+        out = self.measured.to_json()
+        res = self.results[MEASURED_ENGINE]
+        out["cycles_measured"] = list(range(res.first_cycle, res.first_cycle + res.cycles))
+        if "exact" in self.results:
+            exact = self.results["exact"].polarization[:, res.first_cycle - 1 :, :]
+            out["max_abs_error_vs_exact"] = {
+                "raw": float(np.max(np.abs(self.measured.raw.value - exact))),
+                "mitigated": float(np.max(np.abs(res.polarization - exact))),
+            }
+        return out
+
+    def measured_line(self) -> str:
+        """One summary line: the mitigation applied and the error against exact."""
+        applied = ", ".join(self.measured.applied) or "none"
+        line = f"  measured: mitigation {applied}"
+        errors = self.measured_json().get("max_abs_error_vs_exact")
+        if errors:
+            line += (
+                f"; max |P - P_exact| {errors['raw']:.3f} raw, {errors['mitigated']:.3f} "
+                "mitigated (an estimate with an error bar, not a measurement of the physics)"
+            )
+        return line
 
     def summary_lines(self) -> list[str]:
         """A short human summary for the terminal."""
@@ -277,7 +323,8 @@ class RunOutcome:
                 f"|P| = {peak['polarization']:.3f}{spread} (a-priori: {guide})"
             )
         lines += best_common_lines(par, ana["best_common"])
-        lines += saturation_lines(ana["saturation"])
+        if ana["saturation"] is not None:
+            lines += saturation_lines(ana["saturation"])
         lines.append(f"  program: {self.program.describe()}")
         if self.trotter_error() is not None:
             err = self.trotter_error()
@@ -295,10 +342,13 @@ class RunOutcome:
                     f"(shift {format_value(par, p['shift'])}), contrast x{p['contrast_ratio']:.2f}"
                 )
             best = format_value(par, comp["best_common"])
+            sat = comp["saturation"]
             lines.append(
-                f"  best common {par} ({comp['engine']}): {best}; "
-                f"saturation {comp['saturation']:.3f}"
+                f"  best common {par} ({comp['engine']}): {best}"
+                + (f"; saturation {sat:.3f}" if sat is not None else "")
             )
+            if comp["engine"] == MEASURED_ENGINE and self.measured is not None:
+                lines.append(self.measured_line())
         if self.budget is not None:
             per, total = self.budget["per_cycle"], self.budget["total"]
             lines.append(
@@ -316,6 +366,63 @@ class RunOutcome:
         return lines
 
 
+def sampled_counts(
+    scenario: Scenario,
+    engine: str,
+    shots: int,
+    *,
+    seed: int = 0,
+    measure_each_cycle: bool = False,
+    baseline: bool = False,
+    scales: tuple[int, ...] = (),
+    on_point: Callable[[], None] | None = None,
+) -> dict[str, object]:
+    """The counts file (`counts.py` format) that a run of the scenario's programs would give:
+    `shots` per program and value, sampled with `seed` from the readout distributions of the
+    noisy engine (readout error included, its confusion matrix written in the file) or, for
+    `trotter`, of the noiseless program (perfect readout)."""
+    programs = scenario_programs(scenario)
+    work = scenario.workload()
+    noisy = engine_name(engine) == "noisy"
+    if scales and not noisy:
+        raise ScenarioError("folded programs (--fold) amplify processor noise: use --engine noisy")
+    program = programs.mapped() if noisy else programs.logical()
+    noise = scenario.noise if noisy else None
+    error = program.processor.error_readout * scenario.noise.scale if noisy else 0.0
+    confusion = readout_confusion(error, work.system.num_nuclei)
+    variants = program_variants(
+        program, scenario.compile_job().mapping, baseline=baseline, scales=scales
+    )
+    rng = np.random.default_rng(seed)
+    sampled = {}
+    for key, variant in variants.items():
+        dists = readout_distributions(
+            variant, noise, measure_each_cycle=measure_each_cycle, on_point=on_point
+        )
+        sampled[key] = [sample_counts(d, shots, rng, confusion) for d in dists]
+    return counts_json(work, shots, sampled, confusion)
+
+
+def measured_result(
+    scenario: Scenario, counts: MeasuredCounts, settings: MitigationSettings
+) -> tuple[SweepResult, Mitigated]:
+    """The `measured` engine: polarizations of the counts, mitigated as `settings` ask (the
+    readout inverted with the file's confusion matrix, else the processor's readout figure)."""
+    work = scenario.workload()
+    n = work.system.num_nuclei
+    confusion = counts.confusion
+    if confusion is None:
+        confusion = readout_confusion(scenario_processor(scenario).error_readout, n)
+    done = mitigate(counts, settings, confusion)
+    first = 1 if counts.registers == work.cycles else work.cycles
+    values = np.asarray(work.values)
+    est = done.estimate
+    result = SweepResult(
+        MEASURED_ENGINE, work.parameter, values, work.system.labels, est.value, est.stderr, first
+    )
+    return result, done
+
+
 def run_scenario(
     scenario: Scenario,
     engines: tuple[str, ...] = ("exact", "trotter"),
@@ -324,12 +431,14 @@ def run_scenario(
     workers: int = 1,
     scheduler: str | None = None,
     on_point: Callable[[str, int], None] | None = None,
+    measured: tuple[MeasuredCounts, MitigationSettings] | None = None,
 ) -> RunOutcome:
     """Simulate `scenario` with each engine (points missing from `store` only), then analyse.
 
     Every circuit engine runs the program compiled once for the scenario's processor (the
     default processor without a `[processor]` table). `on_point(engine, k)` reports k more
-    finished points.
+    finished points. `measured`: counts of a hardware run (and the mitigation to apply), added
+    as the engine `measured`.
     """
     programs = scenario_programs(scenario)
     results = run_engines(
@@ -350,4 +459,7 @@ def run_scenario(
         others = [processor_for_spec(s, scenario.processor) for s in scenario.processor.compare]
         if others:
             compare = compare_processors(programs, [scenario.processor, *others])
-    return RunOutcome(scenario, results, programs.logical(), budget, compare, rows)
+    mitigated = None
+    if measured is not None:
+        results[MEASURED_ENGINE], mitigated = measured_result(scenario, *measured)
+    return RunOutcome(scenario, results, programs.logical(), budget, compare, rows, mitigated)

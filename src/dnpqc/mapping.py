@@ -146,17 +146,27 @@ def _two_qubit_count(circuit: QuantumCircuit) -> int:
     )
 
 
-#: Instructions that take no part in a segment's work: barriers, simulator saves, delays.
-SKIPPED = frozenset({"barrier", "save_probabilities", "save_density_matrix", "delay"})
+#: Instructions that take no part in a segment's work: barriers and simulator saves.
+SKIPPED = frozenset({"barrier", "save_probabilities", "save_density_matrix"})
+
+
+#: Label of the barriers that fence folded gates (`folding.py`): they close no segment.
+FOLD_FENCE = "fold"
+
+
+def closes_segment(inst, circuit: QuantumCircuit) -> bool:
+    """Whether `inst` is a full-width barrier (the end of the preparation or of a cycle)."""
+    op = inst.operation
+    return op.name == "barrier" and op.num_qubits == circuit.num_qubits and op.label != FOLD_FENCE
 
 
 def split_segments(circuit: QuantumCircuit) -> list[list]:
-    """Instructions between full-width barriers (saves, delays and barriers dropped): the
+    """Instructions between full-width barriers (saves and barriers dropped): the
     preparation, then each cycle."""
     segments: list[list] = [[]]
     for inst in circuit.data:
         name = inst.operation.name
-        if name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
+        if closes_segment(inst, circuit):
             segments.append([])
         elif name not in SKIPPED:
             segments[-1].append(inst)

@@ -123,6 +123,14 @@ class SpinSystem:
     def larmor_hz(self) -> float:
         return larmor_hz(self.field_t)
 
+    def without_couplings(self) -> SpinSystem:
+        """The same spins with every hyperfine and dipolar coupling set to zero (labels,
+        positions and field kept): no polarization can move between them."""
+        nuclei = tuple(
+            Nucleus(n.label, 0.0, 0.0, n.position_nm, n.azimuth_deg) for n in self.nuclei
+        )
+        return SpinSystem(self.field_t, nuclei)
+
 
 def pauli_label(num_qubits: int, paulis: dict[int, str]) -> str:
     """Qiskit Pauli label with the given single-qubit Paulis (qubit 0 right-most)."""

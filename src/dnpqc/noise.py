@@ -41,11 +41,13 @@ from qiskit_aer.noise import (
     QuantumError,
     ReadoutError,
     depolarizing_error,
+    pauli_error,
     reset_error,
     thermal_relaxation_error,
 )
 
 from .budget import AsapClock
+from .mapping import closes_segment
 from .processor import VIRTUAL_GATES, Processor
 
 INSTANT = frozenset({"barrier", "save_probabilities", "save_density_matrix"})
@@ -160,10 +162,28 @@ def without_transfer(circuit: QuantumCircuit) -> QuantumCircuit:
     for inst in circuit.data:
         out.append(inst)
         name = inst.operation.name
-        if name == "barrier" and inst.operation.num_qubits == circuit.num_qubits:
+        if closes_segment(inst, circuit):
             barriers += 1
         elif name == "reset" and barriers:
             out.append(mix, inst.qubits)
+    return out
+
+
+def with_readout_dephasing(circuit: QuantumCircuit) -> QuantumCircuit:
+    """A copy with the back-action of a mid-circuit readout of the nuclei after every cycle but
+    the last: a full dephasing ρ → Σ_b |b><b| ρ |b><b| of each saved qubit (a non-selective
+    Z measurement), so each cycle's saved probabilities are those its register would read
+    (Nielsen & Chuang §8.3.6; the measurement's duration is not modelled)."""
+    saves = [
+        i for i, inst in enumerate(circuit.data) if inst.operation.name == "save_probabilities"
+    ]
+    dephase = pauli_error([("I", 0.5), ("Z", 0.5)]).to_instruction()
+    out = circuit.copy_empty_like()
+    for i, inst in enumerate(circuit.data):
+        out.append(inst)
+        if i in saves[:-1]:
+            for qubit in inst.qubits:
+                out.append(dephase, [qubit])
     return out
 
 
@@ -187,6 +207,9 @@ def with_idle_relaxation(
             pass  # a simulator snapshot, not part of the hardware program: it moves no idle gap
         elif name in INSTANT:
             idle(clock.sync(qubits))
+        elif name == "delay":
+            duration = processor.instruction_duration_s(inst.operation)
+            idle({q: gap + duration for q, gap in clock.place(qubits, duration)[1].items()})
         else:
             idle(clock.place(qubits, processor.gate_duration_s(name))[1])
         out.append(inst)

@@ -145,6 +145,16 @@ class Processor:
             name, self.time_1q_s
         )
 
+    def instruction_duration_s(self, operation) -> float:
+        """Duration of a circuit instruction: a `delay` carries its own (in s, ms, us, ns or
+        the device's dt, taken as 1 ns when unknown), the others are native by name."""
+        if operation.name != "delay":
+            return self.gate_duration_s(operation.name)
+        scale = DELAY_UNITS_S.get(operation.unit)
+        if scale is None:
+            raise ValueError(f"delay unit {operation.unit!r} is not one of {sorted(DELAY_UNITS_S)}")
+        return float(operation.duration) * scale
+
     def gate_error(self, name: str) -> float:
         """Average infidelity of a native instruction by name (readout for measure)."""
         if name in VIRTUAL_GATES:
@@ -152,6 +162,10 @@ class Processor:
         if name == self.two_qubit_gate:
             return self.error_2q
         return {"reset": self.error_reset, "measure": self.error_readout}.get(name, self.error_1q)
+
+
+#: Seconds per unit of a `delay` instruction (OpenQASM 3 duration units).
+DELAY_UNITS_S = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "ns": 1e-9, "dt": 1e-9}
 
 
 def check_fits(processor: Processor, num_qubits: int) -> None:

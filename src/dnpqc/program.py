@@ -28,9 +28,10 @@ import numpy as np
 from qiskit import QuantumCircuit, transpile
 from qiskit.circuit.library import UnitaryGate
 
+from .budget import segment_durations_s
 from .errors import ScenarioError
 from .imperfections import DETUNING_ERROR, DRIVE_ERROR, Imperfections
-from .mapping import MappedProgram, MappingSettings, map_program
+from .mapping import MappedProgram, MappingSettings, closes_segment, map_program
 from .model import SpinSystem
 from .processor import Processor
 from .propagation import Propagators, cycle_unitary, polarization_by_cycle
@@ -274,11 +275,16 @@ def compile_workload(
     )
 
 
-def map_onto(program: Program, processor: Processor, settings: MappingSettings) -> Program:
+def map_onto(
+    program: Program,
+    processor: Processor,
+    settings: MappingSettings,
+    fixed: MappedProgram | None = None,
+) -> Program:
     """The program with its circuits mapped onto `processor`.
 
     A per-row program picks its region and layout on the first row and keeps them for the rest,
-    so every row runs on the same physical qubits.
+    so every row runs on the same physical qubits; with `fixed`, every row keeps that mapping's.
     """
     system = program.workload.system
     first = map_program(
@@ -287,6 +293,7 @@ def map_onto(program: Program, processor: Processor, settings: MappingSettings) 
         processor,
         optimization_level=settings.optimization_level,
         seed=settings.seed,
+        fixed=fixed,
     )
     rest = [
         map_program(
@@ -300,6 +307,65 @@ def map_onto(program: Program, processor: Processor, settings: MappingSettings) 
         for c in program.circuits[1:]
     ]
     return replace(program, mapped=(first, *rest))
+
+
+def baseline_program(program: Program, settings: MappingSettings) -> Program:
+    """The zero-transfer baseline of `program`: every hyperfine and dipolar coupling set to zero,
+    so no polarization can move; what its nuclei show on a processor is the processor's drift.
+
+    The uncoupled cycle is compiled with the program's strategy and settings (it needs no
+    two-qubit gate). Mapped, it keeps the program's qubits and initial layout, and each segment
+    is padded with a delay to the program's duration, so the qubits relax as long as in the
+    program (gate errors other than relaxation are not reproduced; they bias no qubit).
+    """
+    work = program.workload
+    free = replace(work, system=work.system.without_couplings())
+    if program.strategy == "trotter":
+        base = replace(compile_trotter(free, program.trotter), workload=work)
+    else:
+        base = replace(compile_cycle_unitary(free), workload=work)
+    note = "baseline: couplings set to zero"
+    if program.mapped:
+        base = map_onto(base, program.processor, settings, fixed=program.mapped[0])
+        padded = [
+            replace(b, circuit=padded_to(b, segment_durations_s(m)))
+            for b, m in zip(base.mapped, program.mapped, strict=True)
+        ]
+        base = replace(base, mapped=tuple(padded))
+        note += ", each cycle padded with a delay to the program's duration"
+    return replace(base, choice=note)
+
+
+def padded_to(mapped: MappedProgram, durations_s: list[float]) -> QuantumCircuit:
+    """The mapped circuit with a delay on every qubit at the end of each segment that is shorter
+    than `durations_s` (per segment, from `budget.segment_durations_s`), so that each segment
+    lasts as long as the target's and the qubits relax as long."""
+    own = segment_durations_s(mapped)
+    circuit = mapped.circuit
+    out = circuit.copy_empty_like()
+    segment = 0
+    for inst in circuit.data:
+        if closes_segment(inst, circuit):
+            gap = durations_s[segment] - own[segment] if segment < len(own) else 0.0
+            if gap > 0:
+                out.delay(gap, out.qubits, unit="s")
+            segment += 1
+        out.append(inst)
+    return out
+
+
+def _bound(program: Program, name: str, value: float) -> Program:
+    """`program` with the Parameter called `name` (where present) bound to `value`."""
+
+    def bind(circuit: QuantumCircuit) -> QuantumCircuit:
+        found = {p: value for p in circuit.parameters if p.name == name}
+        return circuit.assign_parameters(found) if found else circuit
+
+    return replace(
+        program,
+        circuits=tuple(bind(c) for c in program.circuits),
+        mapped=tuple(replace(m, circuit=bind(m.circuit)) for m in program.mapped),
+    )
 
 
 # --- measured approximation error ---------------------------------------------------------

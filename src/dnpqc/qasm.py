@@ -67,7 +67,11 @@ def hardware_program(
 
 
 def header_lines(
-    program: Program, mapped: MappedProgram, budget: dict, bound: float | None = None
+    program: Program,
+    mapped: MappedProgram,
+    budget: dict,
+    bound: float | None = None,
+    variant: list[str] | None = None,
 ) -> list[str]:
     """Comment lines: scenario, strategy, convention, processor, qubit map and budget summary."""
     work = program.workload
@@ -100,7 +104,7 @@ def header_lines(
         lines.append(f"Input `{parameter}`: the swept quantity in SI units (Hz or s).")
     else:
         lines.append(f"Bound: {parameter} = {bound!r} (SI units).")
-    return lines
+    return lines + list(variant or [])
 
 
 def dumps(program: QuantumCircuit, header: list[str] | None = None) -> str:

@@ -13,7 +13,7 @@ import io
 import numpy as np
 
 from .output import spreadsheet_cell
-from .results import SweepResult
+from .results import MEASURED_ENGINE, SweepResult
 
 _UNITS = {"_hz": ("kHz", 1e-3), "_s": ("µs", 1e6)}
 
@@ -77,7 +77,7 @@ def sweep_csv(results: list[SweepResult]) -> str:
                         [
                             res.engine,
                             repr(float(value)),
-                            c + 1,
+                            res.first_cycle + c,
                             spreadsheet_cell(label),
                             f"{res.polarization[i, c, j]:.12g}",
                             "" if res.stderr is None else f"{res.stderr[i, c, j]:.6g}",
@@ -161,12 +161,12 @@ def buildup_figure(
     plt = _pyplot()
     fig, ax = plt.subplots(figsize=(8.0, 4.2))
     result = results[0]
-    cycles = np.arange(1, result.cycles + 1)
     fine = np.linspace(0, result.cycles, 200)
     for res in results:
         style = ENGINE_STYLES.get(res.engine, "-.")
+        cycles = np.arange(res.first_cycle, res.first_cycle + res.cycles)
         for j, label in enumerate(res.nuclei):
-            fit = fits[res.engine][label]
+            fit = fits.get(res.engine, {}).get(label)
             curve = res.polarization[point, :, j]
             sign = 1.0 if curve[-1] >= 0 else -1.0
             ax.errorbar(
@@ -178,8 +178,11 @@ def buildup_figure(
                 ms=3,
                 capsize=2,
                 color=f"C{j}",
-                label=f"{label} {res.engine} (|P|sat {fit['saturation']:.2f})",
+                label=f"{label} {res.engine}"
+                + (f" (|P|sat {fit['saturation']:.2f})" if fit else ""),
             )
+            if fit is None:
+                continue
             ax.plot(
                 fine,
                 sign * fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
@@ -211,6 +214,19 @@ def comparison_figure(results: list[SweepResult], cycle: int = -1):
         style = ENGINE_STYLES.get(res.engine, "-.")
         for j, label in enumerate(res.nuclei):
             x, y = res.values * scale, res.polarization[:, cycle, j]
+            if res.engine == MEASURED_ENGINE:  # data: points with ± one standard error
+                err = res.stderr[:, cycle, j]
+                ax.errorbar(
+                    x,
+                    y,
+                    yerr=err,
+                    fmt="o",
+                    ms=3,
+                    capsize=2,
+                    color=f"C{j}",
+                    label=f"{label} ({res.engine})",
+                )
+                continue
             ax.plot(x, y, style, color=f"C{j}", label=f"{label} ({res.engine})")
             if res.stderr is not None:
                 err = res.stderr[:, cycle, j]
@@ -368,3 +384,22 @@ def budget_figure(rows: list[dict]):
     ax.legend()
     fig.tight_layout()
     return fig
+
+
+def shot_lines(plan: dict) -> list[str]:
+    """The shot plan of `dnpqc budget`: shots, processor time, peaks against the noise."""
+    lines = [
+        f"shots for a standard error {plan['target_stderr']:g} on P (noisy engine's P): "
+        f"up to {plan['max_shots_per_value']} per value, {plan['total_shots']} in all; "
+        f"{plan['per_shot_s'] * 1e6:.4g} µs per shot (program + initial reset), "
+        f"{plan['total_time_s']:.3g} s of processor time for the sweep",
+        f"  readout inversion multiplies the shots needed by "
+        f"{plan['readout_inversion_shot_factor']:.3g}",
+    ]
+    for p in plan["peaks"]:
+        verdict = "detectable" if p["detectable"] else "NOT detectable"
+        lines.append(
+            f"  {p['nucleus']:>6}: at its exact peak, noisy contrast {p['contrast']:.3f} "
+            f"= {p['sigmas']:.3g} standard errors ({verdict} at {plan['detection_sigmas']:g}σ)"
+        )
+    return lines

@@ -13,6 +13,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+#: The engine of measured counts (`dnpqc run --counts`): not a simulation.
+MEASURED_ENGINE = "measured"
+
 
 @dataclass(frozen=True)
 class SweepResult:
@@ -24,6 +27,7 @@ class SweepResult:
     nuclei: tuple[str, ...]
     polarization: np.ndarray  # (points, cycles, nuclei)
     stderr: np.ndarray | None = None  # same shape, for sampling engines
+    first_cycle: int = 1  # cycle number of polarization[:, 0] (a run read at the end only: C)
 
     @property
     def cycles(self) -> int:
@@ -41,7 +45,14 @@ class SweepResult:
         }
         if self.stderr is not None:
             out["stderr"] = self.stderr.tolist()
+        if self.first_cycle != 1:
+            out["first_cycle"] = self.first_cycle
         return out
+
+    @property
+    def has_buildup(self) -> bool:
+        """Whether every cycle from the first is there (a build-up can be fitted)."""
+        return self.first_cycle == 1
 
 
 def refined_peak(values: np.ndarray, curve: np.ndarray) -> tuple[float, float]:

@@ -23,7 +23,7 @@ from .model import effective_perp_hz, nuclear_frequency_hz
 from .program import Workload
 from .protocols import SpinLock, expected_resonances
 from .report import format_value
-from .results import NO_TRANSFER, SweepResult, refined_peak
+from .results import MEASURED_ENGINE, NO_TRANSFER, SweepResult, refined_peak
 
 #: Warning thresholds (Trotter error in |ΔP|; the others as stated in each check).
 TROTTER_ERROR_LIMIT = 0.05
@@ -62,11 +62,13 @@ def signed_peaks(
 
 
 def _baseline(
-    other: SweepResult, baseline: SweepResult | None, cycle: int
+    other: SweepResult, baseline: SweepResult | None, cycle: int, note: str | None
 ) -> tuple[np.ndarray | None, str]:
+    if note is not None:
+        return None, note
     if baseline is not None:
         return baseline.polarization[:, cycle, :], f"{baseline.engine} (same program, no transfer)"
-    if other.engine.startswith("noisy"):
+    if other.engine.startswith("noisy") or other.engine == MEASURED_ENGINE:
         median = np.median(other.polarization[:, cycle, :], axis=0)
         return np.broadcast_to(median, other.polarization[:, cycle, :].shape), (
             "median over the sweep (no baseline run: guessed)"
@@ -81,8 +83,10 @@ def compare_to_exact(
     baseline: SweepResult | None = None,
     best_common: tuple[float, float] | None = None,
     cycle: int = -1,
+    subtracted: str | None = None,
 ) -> dict[str, object]:
-    """`other` against the exact engine, on signed P minus the zero-transfer baseline.
+    """`other` against the exact engine, on signed P minus the zero-transfer baseline
+    (`subtracted`: a note that `other` has had its baseline removed already).
 
     A nucleus's peak is found when it lies within one grid step of the exact peak, neither peak
     sits on the sweep edge, and the signs agree. `best_common` = (exact, other) best common
@@ -90,7 +94,7 @@ def compare_to_exact(
     """
     values = exact.values
     step = float(abs(values[1] - values[0])) if len(values) > 1 else 0.0
-    base, described = _baseline(other, baseline, cycle)
+    base, described = _baseline(other, baseline, cycle, subtracted)
     ref, mine = signed_peaks(exact, cycle), signed_peaks(other, cycle, base)
     per: dict[str, dict[str, object]] = {}
     for label, peak in ref.items():

@@ -133,6 +133,20 @@ def simulate_trotter(
     )
 
 
+def point_ticker(on_point: Callable[[], None] | None, rows_per_point: int) -> Callable[[int], None]:
+    """A batch callback (k more rows done) that calls `on_point` once per finished point."""
+    done = [0]
+
+    def tick(k: int) -> None:
+        before = done[0] // rows_per_point
+        done[0] += k
+        for _ in range(done[0] // rows_per_point - before):
+            if on_point is not None:
+                on_point()
+
+    return tick
+
+
 def simulate_circuits(
     program: Program,
     circuits: Sequence[QuantumCircuit],
@@ -146,16 +160,6 @@ def simulate_circuits(
     """Run `circuits` (the program's, logical or mapped) over its rows and average the nodes."""
     work = program.workload
     weights = work.weights()
-    per_node = len(weights)
-    done = [0]
-
-    def tick(k: int) -> None:
-        before = done[0] // per_node
-        done[0] += k
-        for _ in range(done[0] // per_node - before):
-            if on_point is not None:
-                on_point()
-
     raw = run_rows(
         circuits,
         row_columns(work),
@@ -164,7 +168,7 @@ def simulate_circuits(
         simulator=simulator,
         shots=shots,
         reader=reader,
-        on_batch=tick,
+        on_batch=point_ticker(on_point, len(weights)),
     )
     pol, err = average_nodes(raw, weights, work.sampled)
     values = np.asarray(work.values)

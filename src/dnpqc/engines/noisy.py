@@ -18,6 +18,7 @@ import numpy as np
 from qiskit import QuantumCircuit
 from qiskit_aer import AerSimulator
 from qiskit_aer.library import SaveProbabilities
+from qiskit_aer.noise import NoiseModel
 
 from ..errors import RunError
 from ..model import z_signs
@@ -85,6 +86,20 @@ def _trajectory_reader(factor: float) -> Callable[[dict, int, int], np.ndarray]:
 BASELINE_ENGINE = "noisy-baseline"
 
 
+def noisy_circuits(
+    program: Program, noise: NoiseSettings
+) -> tuple[list[QuantumCircuit], NoiseModel]:
+    """The mapped circuits with idle relaxation (when `noise.idle`), and their noise model."""
+    if not program.mapped:
+        raise ValueError("the noisy engine needs a mapped program (program.map_onto)")
+    first = program.mapped[0]
+    processor, scale = first.processor, noise.scale
+    circuits = [m.circuit for m in program.mapped]
+    if noise.idle:
+        circuits = [with_idle_relaxation(c, first.region, processor, scale) for c in circuits]
+    return circuits, noise_model(processor, first.region, scale)
+
+
 def simulate_noisy(
     program: Program,
     noise: NoiseSettings | None = None,
@@ -96,19 +111,13 @@ def simulate_noisy(
 
     Without `transfer`: the zero-transfer baseline of the same program (`without_transfer`).
     """
-    if not program.mapped:
-        raise ValueError("the noisy engine needs a mapped program (program.map_onto)")
     noise = noise or NoiseSettings()
-    first = program.mapped[0]
-    processor, scale = first.processor, noise.scale
-    circuits = [m.circuit for m in program.mapped]
-    if noise.idle:
-        circuits = [with_idle_relaxation(c, first.region, processor, scale) for c in circuits]
+    circuits, model = noisy_circuits(program, noise)
     engine = "noisy"
     if not transfer:
         circuits, engine = [without_transfer(c) for c in circuits], BASELINE_ENGINE
-    model = noise_model(processor, first.region, scale)
-    factor = readout_factor(processor, scale)
+    first = program.mapped[0]
+    factor = readout_factor(first.processor, noise.scale)
     if choose_method(noise, first.circuit.num_qubits) == "density_matrix":
         sim = density_matrix_simulator(noise_model=model)
 
