@@ -323,7 +323,9 @@ def test_baseline_moves_no_polarization_and_keeps_the_layout(tmp_path, strategy)
     path.write_text(SCENARIO.format(strategy=strategy))
     sc = load_scenario(path)
     program = scenario_programs(sc).mapped()
-    variants = program_variants(program, sc.compile_job().mapping, baseline=True, scales=(3,))
+    variants = program_variants(
+        program, sc.compile_job().mapping, baseline="uncoupled", scales=(3,)
+    )
     base = variants[(BASELINE, 1)]
     assert base.mapped[0].region == program.mapped[0].region
     assert base.mapped[0].initial == program.mapped[0].initial
@@ -383,3 +385,45 @@ def test_sampled_counts_are_seeded(scenario_path):
     first = sampled_counts(sc, "trotter", 100, seed=3)
     assert first == sampled_counts(sc, "trotter", 100, seed=3)
     assert first != sampled_counts(sc, "trotter", 100, seed=4)
+
+
+def test_mixed_nv_patterns_pool_to_the_mixed_nv(scenario_path):
+    # the 2^C programs with the NV flipped after its reset, pooled with equal shots, give the
+    # program with the NV maximally mixed after every reset (each cycle's map is affine in the
+    # NV's initial ±Z; averaging every sign pattern zeroes them; common practice, no source),
+    # under the processor's noise too
+    from dataclasses import replace
+
+    from dnpqc.noise import with_nv_flips
+
+    sc = load_scenario(scenario_path)
+    program = scenario_programs(sc).mapped()
+    for noise, tolerance in ((replace(sc.noise, scale=0.0), 1e-12), (sc.noise, 1e-4)):
+        mixed = readout_distributions(program, noise, mixed_nv=True)
+        pooled = np.zeros_like(mixed)
+        for pattern in ((0, 0), (0, 1), (1, 0), (1, 1)):
+            flipped = tuple(
+                replace(m, circuit=with_nv_flips(m.circuit, pattern)) for m in program.mapped
+            )
+            pooled += readout_distributions(replace(program, mapped=flipped), noise) / 4
+        # with noise, the X gates' own errors and time are the only difference
+        np.testing.assert_allclose(pooled, mixed, atol=tolerance)
+    plain = readout_distributions(program, sc.noise)
+    assert np.max(np.abs(plain - mixed)) > 0.05  # the pattern 00 alone is the program
+
+
+def test_compile_mixed_nv_baseline_writes_every_pattern(scenario_path, tmp_path, capsys):
+    out = tmp_path / "mixed"
+    assert main(["compile", str(scenario_path), "--baseline", "mixed-nv", "-o", str(out)]) == 0
+    files = sorted(p.name for p in out.iterdir())
+    assert len(files) == 5 * 4 and {f[-10:] for f in files} == {
+        "_nv00.qasm",
+        "_nv01.qasm",
+        "_nv10.qasm",
+        "_nv11.qasm",
+    }
+    text = next(p for p in out.iterdir() if p.name.endswith("_nv11.qasm")).read_text()
+    assert "mixed-NV baseline, pattern 11 of 4" in text
+    qasm3.loads(text)
+    assert main(["compile", str(scenario_path), "--baseline", "other", "-o", str(out)]) == 2
+    assert "invalid choice" in capsys.readouterr().err

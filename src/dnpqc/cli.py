@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import itertools
 import json
 import os
 import sys
@@ -17,7 +18,7 @@ from .counts import read_counts
 from .engines import ENGINE_ALIASES, ENGINES, engine_name, simulate_program
 from .engines.noisy import BASELINE_ENGINE
 from .errors import RunError, ScenarioError
-from .folding import BASELINE, PROGRAM, check_scale, program_variants
+from .folding import BASELINE, BASELINE_KINDS, PROGRAM, check_scale, program_variants
 from .job import (
     RunOutcome,
     engine_options,
@@ -35,6 +36,7 @@ from .mitigation import (
     check_available,
     parse_mitigations,
 )
+from .noise import with_nv_flips
 from .processor import Processor, make_processor, processor_for_spec
 from .program import Program
 from .resources import cores, threads_per_worker
@@ -197,8 +199,13 @@ def _parser() -> argparse.ArgumentParser:
     )
     comp.add_argument(
         "--baseline",
-        action="store_true",
-        help="write the baseline program: the same program with every coupling set to zero",
+        nargs="?",
+        const="uncoupled",
+        default=None,
+        choices=BASELINE_KINDS,
+        help="write the baseline program: the same program with every coupling set to zero "
+        "(uncoupled, the default), or with `mixed-nv` the 2^C copies of the program with the NV "
+        "flipped after its reset in each pattern of cycles (into -o DIR; pool their counts)",
     )
     comp.add_argument(
         "--fold",
@@ -230,8 +237,12 @@ def _parser() -> argparse.ArgumentParser:
     )
     sweep.add_argument(
         "--baseline",
-        action="store_true",
-        help="with --counts-out: also sample the baseline program (couplings zero)",
+        nargs="?",
+        const="uncoupled",
+        default=None,
+        choices=BASELINE_KINDS,
+        help="with --counts-out: also sample the baseline program (couplings zero; or "
+        "mixed-nv: the pooled programs with the NV mixed)",
     )
     sweep.add_argument(
         "--fold",
@@ -516,7 +527,7 @@ def _cmd_sweep(args) -> int:
     counts = None
     if counts_out is not None:
         scales = _scales(args.fold)
-        programs = (1 + args.baseline) * (1 + len(scales))
+        programs = (1 + (args.baseline is not None)) * (1 + len(scales))
         bar = _progress(programs * len(scenario.sweep.values), "counts")
         try:
             counts = sampled_counts(
@@ -541,7 +552,7 @@ def _cmd_sweep(args) -> int:
 
 def _check_counts_out(args, engine: str) -> Path | None:
     """The `--counts-out` file (checked now), with its options checked; None without it."""
-    extras = args.measure_each_cycle or args.baseline or args.fold is not None
+    extras = args.measure_each_cycle or args.baseline is not None or args.fold is not None
     if args.counts_out is None:
         if args.shots is not None or extras:
             raise ScenarioError(
@@ -631,15 +642,19 @@ def compile_texts(
     bind: float | None = None,
     measure_each_cycle: bool = False,
     variant: list[str] | None = None,
+    nv_flips: tuple[int, ...] | None = None,
 ) -> list[tuple[float | None, str]]:
     """(swept value, OpenQASM 3 text) of each hardware program of a mapped, nominal program.
 
     A trotter program gives one text (with the swept quantity as an input unless `bind`); a
     per-value program one text per sweep value, each bound to its value; `variant` lines say
-    what the program is (a baseline, a folded copy).
+    what the program is (a baseline, a folded copy); `nv_flips` flips the NV after the resets
+    of those cycles (`noise.with_nv_flips`).
     """
     texts = []
     for value, mapped in zip(_row_values(program, bind), program.mapped, strict=True):
+        if nv_flips is not None:
+            mapped = replace(mapped, circuit=with_nv_flips(mapped.circuit, nv_flips))
         hardware = qasm.hardware_program(
             mapped, measure_each_cycle=measure_each_cycle, bind=None if program.per_row else value
         )
@@ -651,7 +666,7 @@ def compile_texts(
 def _variant_lines(program: Program, args) -> list[str]:
     """Header lines of a baseline or folded program (empty for the program itself)."""
     lines = []
-    if args.baseline:
+    if args.baseline == "uncoupled":
         lines.append(
             f"Variant: {program.choice}; its measured P is the processor's own drift, to "
             "subtract (`run --counts` with `baseline_counts`)."
@@ -726,11 +741,64 @@ def _compile_folder(path: str | None, strategy: str, bind: float | None) -> Path
     return None
 
 
+#: Most cycles of a mixed-NV baseline (2^C programs).
+MAX_PATTERN_CYCLES = 8
+
+
+def _check_patterns(cycles: int) -> None:
+    if cycles > MAX_PATTERN_CYCLES:
+        raise ScenarioError(
+            f"`--baseline mixed-nv` writes 2^C programs; {cycles} cycles would be "
+            f"{2**cycles:,} (at most {MAX_PATTERN_CYCLES} cycles); use `--baseline` (uncoupled)"
+        )
+
+
+def _write_mixed_nv(scenario: Scenario, program: Program, args, folder: Path) -> int:
+    """The 2^C programs of a mixed-NV baseline, `<name>[_<parameter>_<value>]_nv<bits>.qasm`
+    (bit c = 1: the NV flipped after the reset of cycle c+1), every file checked first."""
+    cycles = scenario.cycles
+    patterns = list(itertools.product((0, 1), repeat=cycles))
+    files = []
+    for pattern in patterns:
+        bits = "".join(map(str, pattern))
+        note = (
+            f"Variant: mixed-NV baseline, pattern {bits} of {2**cycles} (cycle 1 first; 1 = X "
+            "on the NV after its reset): run all of them with equal shots and pool the counts "
+            "as `baseline_counts`; the NV is then maximally mixed and no polarization moves."
+        )
+        texts = compile_texts(
+            program,
+            bind=args.bind,
+            measure_each_cycle=args.measure_each_cycle,
+            variant=[*_variant_lines(program, args), note],
+            nv_flips=pattern,
+        )
+        for value, text in texts:
+            if program.per_row:
+                stem = program_file_name(scenario.name, scenario.sweep.parameter, value)[:-5]
+            else:
+                stem = output.safe_component(scenario.name)
+            files.append((output.check_file(folder / f"{stem}_nv{bits}.qasm", "-o"), text))
+    for target, text in files:
+        output.write_text(target, text)
+    print(f"programs: {len(files)} files in {output.one_line(str(folder))}")
+    return 0
+
+
 def _cmd_compile(args) -> int:
     scenario = load_scenario(args.scenario)
     processor = scenario_processor(scenario, args.processor)
     strategy = scenario.compile.strategy
-    folder = _compile_folder(args.output, strategy, args.bind)
+    mixed = args.baseline == "mixed-nv"
+    if mixed:
+        _check_patterns(scenario.cycles)
+        if args.output is None:
+            raise ScenarioError(
+                "`--baseline mixed-nv` writes one program per pattern of NV flips: give `-o DIR`"
+            )
+        folder = output.check_folder(args.output, "-o")
+    else:
+        folder = _compile_folder(args.output, strategy, args.bind)
     destination = None
     if folder is None and args.output is not None:
         destination = output.check_file(args.output, "-o")
@@ -740,6 +808,8 @@ def _cmd_compile(args) -> int:
         program, scenario.compile_job().mapping, baseline=args.baseline, scales=(args.fold,)
     )
     program = variants[(BASELINE if args.baseline else PROGRAM, args.fold)]
+    if mixed:
+        return _write_mixed_nv(scenario, program, args, folder)
     texts = compile_texts(
         program,
         bind=args.bind,

@@ -11,7 +11,8 @@ The file (JSON):
                   "folded": [{"scale": 3, "counts": {...},    (optional: `compile --fold 3`)
                               "baseline_counts": {...}}]},    (optional)
                  ...],
-     "confusion": [[p(0|0), p(0|1)], [p(1|0), p(1|1)]]}       (optional, see below)
+     "confusion": [[p(0|0), p(0|1)], [p(1|0), p(1|1)]],       (optional, see below)
+     "baseline_kind": "uncoupled" | "mixed-nv"}               (optional: which baseline)
 
 Bitstrings are as qiskit prints them: highest bit first, registers separated by spaces, the
 last-declared register first. A program measured at the end has one register `nuclei` (bit j =
@@ -34,7 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import ScenarioError
-from .folding import BASELINE, PROGRAM
+from .folding import BASELINE, BASELINE_KINDS, PROGRAM
 from .program import Workload
 
 #: Relative tolerance of a value in the file against the sweep's values.
@@ -59,6 +60,7 @@ class MeasuredCounts:
     registers: int
     means: dict[tuple[str, int], np.ndarray]
     confusion: np.ndarray | None  # (nuclei, 2, 2), M[read, prepared]
+    baseline_kind: str | None = None  # "uncoupled" or "mixed-nv", when the file says
 
     @property
     def scales(self) -> tuple[int, ...]:
@@ -119,7 +121,10 @@ def read_counts(data: object, work: Workload) -> MeasuredCounts:
         means[key] = np.array(column)
     if (PROGRAM, 1) not in means:
         raise _fail("results[].counts", "is missing")
-    return MeasuredCounts(digest, shots, registers.pop(), means, _confusion(data, n))
+    kind = data.get("baseline_kind")
+    if kind is not None and kind not in BASELINE_KINDS:
+        raise _fail("baseline_kind", f"must be one of {', '.join(BASELINE_KINDS)}, got {kind!r}")
+    return MeasuredCounts(digest, shots, registers.pop(), means, _confusion(data, n), kind)
 
 
 def _match_values(results: list, work: Workload) -> list[tuple[int, dict]]:
@@ -299,6 +304,7 @@ def counts_json(
     shots: int,
     sampled: dict[tuple[str, int], list[dict[str, int]]],
     confusion: np.ndarray,
+    baseline_kind: str | None = None,
 ) -> dict[str, object]:
     """The counts file of sampled programs (`sampled[(kind, scale)]`: counts per value)."""
     results = []
@@ -317,9 +323,12 @@ def counts_json(
                 for s in folds
             ]
         results.append(result)
-    return {
+    out = {
         "scenario_digest": work.digest,
         "shots": shots,
         "results": results,
         "confusion": confusion.tolist(),
     }
+    if baseline_kind is not None:
+        out["baseline_kind"] = baseline_kind
+    return out

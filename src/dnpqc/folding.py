@@ -26,6 +26,8 @@ from .program import Program, baseline_program
 
 #: Program kinds: the program itself, its baseline (every coupling zero).
 PROGRAM, BASELINE = "counts", "baseline_counts"
+#: Baselines: every coupling zero (the default), or the same program with the NV mixed.
+BASELINE_KINDS = ("uncoupled", "mixed-nv")
 
 #: Scale factors of the folded programs (the unfolded program is scale 1).
 DEFAULT_SCALES = (1, 3, 5)
@@ -74,15 +76,29 @@ def folded_program(program: Program, scale: int) -> Program:
 
 
 def program_variants(
-    program: Program, settings: MappingSettings, *, baseline: bool, scales: tuple[int, ...]
+    program: Program,
+    settings: MappingSettings,
+    *,
+    baseline: str | None,
+    scales: tuple[int, ...],
 ) -> dict[tuple[str, int], Program]:
-    """The mapped program, and as asked its baseline (couplings zero) and copies of both folded
-    to `scales`: {(kind, scale): program}, kind PROGRAM or BASELINE, scale 1 unfolded."""
+    """The mapped program, and as asked its baseline and copies of both folded to `scales`:
+    {(kind, scale): program}, kind PROGRAM or BASELINE, scale 1 unfolded.
+
+    `baseline` "uncoupled": every coupling zero (`program.baseline_program`); "mixed-nv": the
+    program itself, run with the NV mixed after each reset (`noise.with_nv_flips`; the same
+    gates, so the entry is the program); None: no baseline.
+    """
+    if baseline is not None and baseline not in BASELINE_KINDS:
+        raise ScenarioError(
+            f"`--baseline` must be one of {', '.join(BASELINE_KINDS)}, got {baseline!r}"
+        )
     out = {(PROGRAM, 1): program}
-    if baseline:
-        out[(BASELINE, 1)] = baseline_program(program, settings)
-    for scale in sorted(set(scales) - {1}):
-        out[(PROGRAM, scale)] = folded_program(program, scale)
-        if baseline:
+    for scale in sorted(set(scales) | {1}):
+        if scale > 1:
+            out[(PROGRAM, scale)] = folded_program(program, scale)
+        if baseline == "uncoupled":
             out[(BASELINE, scale)] = baseline_program(out[(PROGRAM, scale)], settings)
+        elif baseline == "mixed-nv":
+            out[(BASELINE, scale)] = out[(PROGRAM, scale)]
     return out

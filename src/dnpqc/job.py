@@ -13,7 +13,7 @@ from .engines import NOISY_ENGINES, EngineOptions, engine_name, simulate_program
 from .engines.noisy import BASELINE_ENGINE
 from .engines.shots import readout_confusion, readout_distributions
 from .errors import ScenarioError
-from .folding import program_variants
+from .folding import BASELINE, program_variants
 from .mitigation import Mitigated, MitigationSettings, mitigate
 from .model import effective_perp_hz, nuclear_frequency_hz
 from .processor import Processor, make_processor, processor_for_spec
@@ -169,12 +169,16 @@ class RunOutcome:
         value = error["value"] if error else None
         out = run_warnings(self.scenario.workload(), self.reference, trotter_error=value)
         out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
-        if self.measured is not None and "baseline" in self.measured.applied:
+        if (
+            self.measured is not None
+            and "baseline" in self.measured.applied
+            and self.measured.notes.get("baseline_kind") != "mixed-nv"
+        ):
             out.append(
                 "measured: the baseline subtracted is the drift of the uncoupled program over the "
                 "program's time; where the program's dynamics carry drift to the reset NV it "
-                "overshoots (README 'From program to measured answer'); compare with "
-                "--mitigate readout,zne"
+                "overshoots (README 'From program to measured answer'); prefer the mixed-NV "
+                "baseline (`compile --baseline mixed-nv`) or compare with --mitigate readout,zne"
             )
         return out
 
@@ -373,14 +377,16 @@ def sampled_counts(
     *,
     seed: int = 0,
     measure_each_cycle: bool = False,
-    baseline: bool = False,
+    baseline: str | None = None,
     scales: tuple[int, ...] = (),
     on_point: Callable[[], None] | None = None,
 ) -> dict[str, object]:
     """The counts file (`counts.py` format) that a run of the scenario's programs would give:
     `shots` per program and value, sampled with `seed` from the readout distributions of the
     noisy engine (readout error included, its confusion matrix written in the file) or, for
-    `trotter`, of the noiseless program (perfect readout)."""
+    `trotter`, of the noiseless program (perfect readout). `baseline`: None, "uncoupled" or
+    "mixed-nv" (`folding.program_variants`); a mixed-NV baseline's counts are those of its
+    2^C programs pooled with equal shots."""
     programs = scenario_programs(scenario)
     work = scenario.workload()
     noisy = engine_name(engine) == "noisy"
@@ -397,10 +403,14 @@ def sampled_counts(
     sampled = {}
     for key, variant in variants.items():
         dists = readout_distributions(
-            variant, noise, measure_each_cycle=measure_each_cycle, on_point=on_point
+            variant,
+            noise,
+            measure_each_cycle=measure_each_cycle,
+            mixed_nv=key[0] == BASELINE and baseline == "mixed-nv",
+            on_point=on_point,
         )
         sampled[key] = [sample_counts(d, shots, rng, confusion) for d in dists]
-    return counts_json(work, shots, sampled, confusion)
+    return counts_json(work, shots, sampled, confusion, baseline)
 
 
 def measured_result(

@@ -171,6 +171,8 @@ def mitigate(
         if "baseline" in steps:
             est = baseline_subtracted(est, base)
         per_scale.append(est)
+    if "baseline" in steps:
+        notes["baseline_kind"] = counts.baseline_kind or "not given"
     if "readout" in steps:
         notes["readout"] = {
             "confusion": confusion.tolist(),

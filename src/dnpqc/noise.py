@@ -153,20 +153,39 @@ def readout_factor(processor: Processor, scale: float = 1.0) -> float:
     return 1.0 - 2.0 * min(0.5, processor.error_readout * scale)
 
 
+def _after_cycle_resets(circuit: QuantumCircuit, add) -> QuantumCircuit:
+    """A copy with `add(out, inst, c)` called after the reset that starts cycle c (0-based;
+    the resets past the preparation, which the first full-width barrier closes)."""
+    out = circuit.copy_empty_like()
+    barriers = cycle = 0
+    for inst in circuit.data:
+        out.append(inst)
+        if closes_segment(inst, circuit):
+            barriers += 1
+        elif inst.operation.name == "reset" and barriers:
+            add(out, inst, cycle)
+            cycle += 1
+    return out
+
+
 def without_transfer(circuit: QuantumCircuit) -> QuantumCircuit:
     """A copy with a fully depolarizing channel (ρ → I/2) after every reset past the
     preparation (the first full-width barrier): the zero-transfer baseline program."""
-    out = circuit.copy_empty_like()
     mix = depolarizing_error(1.0, 1).to_instruction()
-    barriers = 0
-    for inst in circuit.data:
-        out.append(inst)
-        name = inst.operation.name
-        if closes_segment(inst, circuit):
-            barriers += 1
-        elif name == "reset" and barriers:
-            out.append(mix, inst.qubits)
-    return out
+    return _after_cycle_resets(circuit, lambda out, inst, _: out.append(mix, inst.qubits))
+
+
+def with_nv_flips(circuit: QuantumCircuit, pattern: tuple[int, ...]) -> QuantumCircuit:
+    """A copy with an X on the NV after the reset of each cycle c with pattern[c] = 1. The
+    2^C patterns with equal shots average to `without_transfer`: each cycle's map is affine in
+    the NV's initial ±Z, so the pooled result is multilinear in the C signs, and the average
+    over all sign patterns sets every one of them to 0 (the NV maximally mixed)."""
+
+    def flip(out, inst, cycle: int) -> None:
+        if pattern[cycle]:
+            out.x(inst.qubits[0])
+
+    return _after_cycle_resets(circuit, flip)
 
 
 def with_readout_dephasing(circuit: QuantumCircuit) -> QuantumCircuit:

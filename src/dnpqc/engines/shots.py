@@ -21,7 +21,7 @@ import numpy as np
 
 from ..errors import RunError
 from ..imperfections import average_nodes
-from ..noise import NoiseSettings, with_readout_dephasing
+from ..noise import NoiseSettings, with_readout_dephasing, without_transfer
 from ..program import Program
 from ..trotter import cycle_label
 from .circuit import density_matrix_simulator, point_ticker, row_columns, run_rows
@@ -33,12 +33,15 @@ def readout_distributions(
     noise: NoiseSettings | None,
     *,
     measure_each_cycle: bool = False,
+    mixed_nv: bool = False,
     on_point: Callable[[], None] | None = None,
 ) -> np.ndarray:
     """(points, registers, 2^n) probabilities of the nuclear readout registers, before readout
     error; registers = cycles with `measure_each_cycle`, else 1 (the last cycle). Nucleus j is
     bit j of the index. `noise` None: the logical program without noise; else the mapped
-    program with processor noise (density matrix only)."""
+    program with processor noise (density matrix only). `mixed_nv`: the NV left maximally
+    mixed after each cycle's reset (`noise.without_transfer`: the pooled 2^C programs of
+    `noise.with_nv_flips`)."""
     work = program.workload
     n, cycles = work.system.num_nuclei, work.cycles
     if noise is None:
@@ -52,6 +55,8 @@ def readout_distributions(
                 "needs)"
             )
         simulator = density_matrix_simulator(noise_model=model)
+    if mixed_nv:
+        circuits = [without_transfer(c) for c in circuits]
     if measure_each_cycle:
         circuits = [with_readout_dephasing(c) for c in circuits]
     registers = range(1, cycles + 1) if measure_each_cycle else (cycles,)
