@@ -16,15 +16,15 @@ from qiskit import transpile
 from qiskit_aer import AerSimulator
 
 from dnpqc import compile_program, demo_scenario, parse_scenario, simulate
+from dnpqc.compile.folding import BASELINE_KINDS
+from dnpqc.compile.noise import noise_model, with_idle_relaxation
+from dnpqc.compile.processor import build_target, make_processor
+from dnpqc.compile.strategy import applicable, resolved_trotter, strategy_row
 from dnpqc.engines.circuit import density_matrix_simulator, run_program
-from dnpqc.folding import BASELINE_KINDS
-from dnpqc.job import scenario_programs
-from dnpqc.model import hamiltonian
-from dnpqc.noise import noise_model, with_idle_relaxation
-from dnpqc.processor import build_target, make_processor
-from dnpqc.propagation import nv_rotation
-from dnpqc.scenario import Sweep
-from dnpqc.strategy import applicable, resolved_trotter, strategy_row
+from dnpqc.io.scenario import Sweep
+from dnpqc.physics.model import hamiltonian
+from dnpqc.physics.propagation import nv_rotation
+from dnpqc.pipeline.job import scenario_programs
 
 
 def cluster(n: int, *, points: int, cycles: int, steps: int = 10, time_s: float = 12e-6) -> str:
@@ -252,7 +252,7 @@ def case_typical_at_scale() -> None:
 def case_serial_vs_pool() -> None:
     """`dnpqc run` of the demo's engines in one process and on a pool of two workers (each
     limited to cores // workers threads)."""
-    from dnpqc.job import run_scenario
+    from dnpqc.pipeline.job import run_scenario
 
     sc = demo_scenario()
     engines = ("exact", "trotter", "noisy")
@@ -280,9 +280,9 @@ def _mitigation_errors(sc, shots: int, baseline: str) -> dict[str, dict[str, flo
     """max |P_measured - P_reference| (last cycle, every value and nucleus; reference exact
     and the noiseless program) of sampled counts of the program, its `baseline` and the folds
     3 and 5, raw and after each mitigation."""
-    from dnpqc.counts import read_counts
-    from dnpqc.job import sampled_counts
-    from dnpqc.mitigation import MitigationSettings, mitigate
+    from dnpqc.analysis.counts import read_counts
+    from dnpqc.analysis.mitigation import MitigationSettings, mitigate
+    from dnpqc.pipeline.measured import sampled_counts
 
     data = sampled_counts(sc, "noisy", shots, seed=1, baseline=baseline, scales=(3, 5))
     counts = read_counts(data, sc.workload())
@@ -304,7 +304,7 @@ def case_mitigation() -> None:
     processor (every 4th sweep value) and of the NV + 2 example on the default figures."""
     from pathlib import Path
 
-    from dnpqc.scenario import load_scenario
+    from dnpqc.io.scenario import load_scenario
 
     demo = demo_scenario()
     values = demo.sweep.values[::4]

@@ -3,8 +3,8 @@
 import numpy as np
 import scipy.linalg
 
-from dnpqc.constants import electron_nuclear_dipolar_hz_nm3
-from dnpqc.model import Nucleus, SpinSystem
+from dnpqc.physics.constants import electron_nuclear_dipolar_hz_nm3
+from dnpqc.physics.model import Nucleus, SpinSystem
 
 I2 = np.eye(2)
 X = np.array([[0, 1], [1, 0]], dtype=complex)

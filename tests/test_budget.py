@@ -17,10 +17,10 @@ from qiskit_aer import AerSimulator
 from qiskit_aer.noise import depolarizing_error, thermal_relaxation_error
 
 from dnpqc import parse_scenario
-from dnpqc.budget import gate_budget, segment_cost, split_segments
-from dnpqc.job import scenario_programs
-from dnpqc.noise import noise_model, with_idle_relaxation
-from dnpqc.processor import make_processor
+from dnpqc.compile.budget import gate_budget, segment_cost, split_segments
+from dnpqc.compile.noise import noise_model, with_idle_relaxation
+from dnpqc.compile.processor import make_processor
+from dnpqc.pipeline.job import scenario_programs
 
 PROC = make_processor({"topology": "line:3", "t1_s": 100e-6, "t2_s": 80e-6})
 
@@ -149,7 +149,7 @@ def test_estimate_is_pessimistic_per_cycle_and_per_program(t1_s):
     budget = gate_budget(mapped)
     circuit = mapped.circuit.assign_parameters(dict.fromkeys(mapped.circuit.parameters, 330e3))
     cycle = split_segments(circuit)[1]
-    s_cycle = budget["cycles"][0]["success_estimate"]
+    s_cycle = budget.cycles[0].success_estimate
     for instructions in (cycle, [i for i in cycle if i.operation.name != "reset"]):
         qc = QuantumCircuit(circuit.num_qubits)
         qc.barrier()
@@ -162,18 +162,18 @@ def test_estimate_is_pessimistic_per_cycle_and_per_program(t1_s):
         assert 0.6 * fidelity < s_cycle <= fidelity
     # with the average infidelity in place of the process infidelity, S would be optimistic
     # when the gates dominate (the figure this estimate replaced)
-    per_cycle = budget["per_cycle"]
+    per_cycle = budget.per_cycle
     e1, e2 = sc.processor.error_1q, sc.processor.error_2q
     old = (
         s_cycle
-        * ((1 - e1) / (1 - 1.5 * e1)) ** budget["cycles"][0]["one_qubit"]
-        * ((1 - e2) / (1 - 1.25 * e2)) ** budget["cycles"][0]["two_qubit"]
+        * ((1 - e1) / (1 - 1.5 * e1)) ** budget.cycles[0].one_qubit
+        * ((1 - e2) / (1 - 1.25 * e2)) ** budget.cycles[0].two_qubit
     )
-    assert per_cycle["two_qubit"] > 50 and (old > fidelity) == (t1_s > 1e-3)
+    assert per_cycle.two_qubit > 50 and (old > fidelity) == (t1_s > 1e-3)
     program = QuantumCircuit(circuit.num_qubits)
     for inst in circuit.data:
         if not inst.operation.name.startswith("save"):
             program.append(inst)
     noisy, ideal = _noisy_and_ideal(mapped, program, "density_matrix")
-    s_program = budget["total"]["success_estimate"] / budget["readout"]["success_estimate"]
+    s_program = budget.total.success_estimate / budget.readout.success_estimate
     assert s_program <= state_fidelity(DensityMatrix(noisy), DensityMatrix(ideal))

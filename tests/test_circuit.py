@@ -9,11 +9,11 @@ from conftest import AZIMUTH_TRIPLE, one_nucleus, pulsed_text
 from qiskit.quantum_info import Operator
 
 from dnpqc import compile_program, parse_scenario, simulate
+from dnpqc.compile.trotter import cycle_circuit, program_parameters
 from dnpqc.engines.circuit import density_matrix_simulator, run_program
-from dnpqc.model import hamiltonian
-from dnpqc.propagation import Propagators, cycle_unitary
-from dnpqc.results import max_difference
-from dnpqc.trotter import cycle_circuit, program_parameters
+from dnpqc.engines.results import max_difference
+from dnpqc.physics.model import hamiltonian
+from dnpqc.physics.propagation import Propagators, cycle_unitary
 
 
 def _with_steps(sc, steps, order):

@@ -6,9 +6,9 @@ from pathlib import Path
 import openqasm3
 import pytest
 
-from dnpqc.cli import compile_text
-from dnpqc.processor import processor_for_spec
-from dnpqc.scenario import load_scenario
+from dnpqc.compile.processor import processor_for_spec
+from dnpqc.io.scenario import load_scenario
+from dnpqc.pipeline.export import compile_text
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "src" / "dnpqc" / "scenarios" / "demo.toml"

@@ -4,8 +4,8 @@ import math
 
 import pytest
 
-from dnpqc import constants
-from dnpqc.lattice import dipolar_from_positions, hyperfine_from_position
+from dnpqc.physics import constants
+from dnpqc.physics.lattice import dipolar_from_positions, hyperfine_from_position
 
 
 def test_gyromagnetic_ratios():

@@ -12,15 +12,22 @@ from qiskit import ClassicalRegister, QuantumCircuit, QuantumRegister, qasm3
 from qiskit.quantum_info import Operator
 from qiskit_aer import AerSimulator
 
-from dnpqc.budget import segment_durations_s
+from dnpqc.analysis.counts import Estimate, apply_confusion, bit_means, read_counts, sample_counts
+from dnpqc.analysis.mitigation import exponential, readout_inverted, richardson, richardson_weights
 from dnpqc.cli import main
-from dnpqc.counts import Estimate, apply_confusion, bit_means, read_counts, sample_counts
+from dnpqc.compile.budget import segment_durations_s
+from dnpqc.compile.folding import (
+    BASELINE,
+    PROGRAM,
+    check_scale,
+    fold_two_qubit_gates,
+    program_variants,
+)
 from dnpqc.engines.shots import readout_confusion, readout_distributions
 from dnpqc.errors import ScenarioError
-from dnpqc.folding import BASELINE, PROGRAM, check_scale, fold_two_qubit_gates, program_variants
-from dnpqc.job import sampled_counts, scenario_programs
-from dnpqc.mitigation import exponential, readout_inverted, richardson, richardson_weights
-from dnpqc.scenario import load_scenario
+from dnpqc.io.scenario import load_scenario
+from dnpqc.pipeline.job import scenario_programs
+from dnpqc.pipeline.measured import sampled_counts
 
 SCENARIO = """
 name = "counts-test"
@@ -360,7 +367,7 @@ def test_budget_plans_shots_and_time(scenario_path, tmp_path, capsys):
     data = json.loads(out.read_text())
     plan = data["shots"]
     sc = load_scenario(scenario_path)
-    from dnpqc.job import simulate
+    from dnpqc.pipeline.job import simulate
 
     noisy = simulate(sc, "noisy").polarization
     # N = ceil(max (1 - P²)/σ²): the binomial standard error solved for N (common practice)
@@ -394,7 +401,7 @@ def test_mixed_nv_patterns_pool_to_the_mixed_nv(scenario_path):
     # under the processor's noise too
     from dataclasses import replace
 
-    from dnpqc.noise import with_nv_flips
+    from dnpqc.compile.noise import with_nv_flips
 
     sc = load_scenario(scenario_path)
     program = scenario_programs(sc).mapped()

@@ -10,9 +10,9 @@ from conftest import AZIMUTH_TRIPLE, THREE_NUCLEI, one_nucleus, pulsed_text
 from helpers import spin_lock_reference
 
 from dnpqc import parse_scenario, simulate
-from dnpqc.model import effective_perp_hz, hamiltonian, nuclear_frequency_hz
-from dnpqc.propagation import nv_rotation, reset_kraus
-from dnpqc.protocols import PULSEPOL
+from dnpqc.physics.model import effective_perp_hz, hamiltonian, nuclear_frequency_hz
+from dnpqc.physics.propagation import nv_rotation, reset_kraus
+from dnpqc.physics.protocols import PULSEPOL
 
 
 def test_against_full_density_matrix_reference(three_nuclei):
@@ -216,7 +216,7 @@ def test_polarizations_invariant_under_a_common_change_of_azimuths(three_nuclei)
 
 def test_eigendecomposition_cache_stays_bounded(monkeypatch):
     # a swept Rabi frequency gives a new H per point; the cache must not grow with the sweep
-    from dnpqc import propagation
+    from dnpqc.physics import propagation
 
     sc = parse_scenario(THREE_NUCLEI)
     props = propagation.Propagators(sc.system)

@@ -239,8 +239,8 @@ def _no_mapping(*args, **kwargs):
 def stop_at_mapping():
     """budget and compile map the program (seconds): stop them where that work would start."""
     with (
-        mock.patch("dnpqc.cli.Programs", _no_mapping),
-        mock.patch("dnpqc.cli.scenario_programs", _no_mapping),
+        mock.patch("dnpqc.pipeline.export.Programs", _no_mapping),
+        mock.patch("dnpqc.pipeline.plan.scenario_programs", _no_mapping),
         contextlib.suppress(WorkStarted),
     ):
         yield

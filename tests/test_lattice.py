@@ -5,9 +5,9 @@ import math
 import numpy as np
 import pytest
 
-from dnpqc.constants import DIAMOND_LATTICE_NM
 from dnpqc.errors import ScenarioError
-from dnpqc.lattice import diamond_sites_nm, random_cluster_nm
+from dnpqc.physics.constants import DIAMOND_LATTICE_NM
+from dnpqc.physics.lattice import diamond_sites_nm, random_cluster_nm
 
 
 def test_nearest_neighbour_shell():

@@ -4,10 +4,10 @@ import numpy as np
 import pytest
 
 from dnpqc import compile_program, parse_scenario
-from dnpqc.budget import gate_budget
+from dnpqc.compile.budget import gate_budget
+from dnpqc.compile.mapping import choose_region, interaction_layout, map_program
+from dnpqc.compile.processor import make_processor
 from dnpqc.engines.circuit import density_matrix_simulator, run_program
-from dnpqc.mapping import choose_region, interaction_layout, map_program
-from dnpqc.processor import make_processor
 
 LATTICE = """
 [spins]
@@ -150,8 +150,8 @@ def test_two_qubit_count_on_full_graph_equals_term_count():
     expected = (2 * n + 3 * pairs) * sc.trotter.steps * sc.cycles + n
     assert mapped.circuit.count_ops()["rzz"] == expected
     budget = gate_budget(mapped)
-    assert budget["per_cycle"]["two_qubit"] == (2 * n + 3 * pairs) * sc.trotter.steps
-    assert budget["total"]["swaps"] == 0
+    assert budget.per_cycle.two_qubit == (2 * n + 3 * pairs) * sc.trotter.steps
+    assert budget.total.swaps == 0
 
 
 def test_interaction_layout_puts_nv_on_the_hub_and_partners_close():

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from dnpqc import parse_scenario
-from dnpqc.model import (
+from dnpqc.physics.model import (
     Coupling,
     Nucleus,
     SpinSystem,

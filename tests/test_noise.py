@@ -15,19 +15,19 @@ from qiskit_aer import AerSimulator
 from qiskit_aer.noise import depolarizing_error
 
 from dnpqc import parse_scenario, simulate
-from dnpqc.engines.noisy import choose_method
-from dnpqc.errors import RunError
-from dnpqc.imperfections import Imperfections
-from dnpqc.job import scenario_programs
-from dnpqc.model import nuclear_frequency_hz
-from dnpqc.noise import (
+from dnpqc.compile.noise import (
     depolarizing_parameter,
     gate_error,
     noise_model,
     relaxation,
     with_idle_relaxation,
 )
-from dnpqc.processor import make_processor
+from dnpqc.compile.processor import make_processor
+from dnpqc.engines.noisy import choose_method
+from dnpqc.errors import RunError
+from dnpqc.physics.imperfections import Imperfections
+from dnpqc.physics.model import nuclear_frequency_hz
+from dnpqc.pipeline.job import scenario_programs
 
 PROC = make_processor(
     {

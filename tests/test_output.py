@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from dnpqc import output
 from dnpqc.errors import RunError
+from dnpqc.io import output
 
 
 def _a_file(folder: Path) -> Path:

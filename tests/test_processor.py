@@ -5,7 +5,7 @@ import pytest
 from qiskit.transpiler import CouplingMap
 
 from dnpqc import ScenarioError, parse_scenario
-from dnpqc.processor import (
+from dnpqc.compile.processor import (
     PRESETS,
     build_target,
     coupling_graph,

@@ -10,12 +10,10 @@ from conftest import THREE_NUCLEI
 from qiskit.quantum_info import Operator
 
 from dnpqc import demo_scenario, load_scenario, parse_scenario, simulate
-from dnpqc.budget import gate_budget
-from dnpqc.codesign import trotter_error
-from dnpqc.engines.circuit import density_matrix_simulator, simulate_circuits
-from dnpqc.job import scenario_programs
-from dnpqc.processor import make_processor
-from dnpqc.program import (
+from dnpqc.analysis.codesign import trotter_error
+from dnpqc.compile.budget import gate_budget
+from dnpqc.compile.processor import make_processor
+from dnpqc.compile.program import (
     TrotterSettings,
     choose_weak_every,
     compile_workload,
@@ -23,8 +21,16 @@ from dnpqc.program import (
     synthesis_cost,
     trotter_plan,
 )
-from dnpqc.results import max_difference
-from dnpqc.trotter import cycle_circuit, pauli_terms, plan_unitary, program_parameters, weak_keys
+from dnpqc.compile.trotter import (
+    cycle_circuit,
+    pauli_terms,
+    plan_unitary,
+    program_parameters,
+    weak_keys,
+)
+from dnpqc.engines.circuit import density_matrix_simulator, simulate_circuits
+from dnpqc.engines.results import max_difference
+from dnpqc.pipeline.job import scenario_programs
 
 ROOT = Path(__file__).resolve().parents[1]
 HARDWARE = ROOT / "examples" / "hardware-two-nuclei.toml"
@@ -85,7 +91,7 @@ def test_demo_cycle_unitary_on_the_grid():
     # issue target: <= 800 two-qubit gates per cycle on grid:3x3, noiseless program = exact
     sc = _strategy(_points(demo_scenario(), [8, 16]), "cycle-unitary")
     program = scenario_programs(sc).mapped(nominal=True)
-    per_cycle = [gate_budget(m)["per_cycle"]["two_qubit"] for m in program.mapped]
+    per_cycle = [gate_budget(m).per_cycle.two_qubit for m in program.mapped]
     assert max(per_cycle) <= 800
     circuits = [m.circuit for m in program.mapped]
     mapped = simulate_circuits(program, circuits, "mapped", density_matrix_simulator())
@@ -98,9 +104,9 @@ def test_demo_weak_terms_cut_the_gates_at_equal_error():
     programs = scenario_programs(sc)  # k is chosen on the whole sweep
     program = programs.mapped(nominal=True)
     assert program.plan.weak_every > 1
-    assert gate_budget(program.mapped[0])["per_cycle"]["two_qubit"] <= 2600
+    assert gate_budget(program.mapped[0]).per_cycle.two_qubit <= 2600
     error = trotter_error(sc.compile_job(), programs.trotter()[0])
-    assert error["value"] <= 1.1 * DEMO_TROTTER_ERROR
+    assert error.value <= 1.1 * DEMO_TROTTER_ERROR
 
 
 def _rotations(plan, keys):
@@ -150,7 +156,7 @@ def test_auto_picks_synthesis_for_a_small_experiment():
     programs = scenario_programs(_points(sc, [12]))
     assert programs.choice().strategy == "cycle-unitary"
     program = programs.mapped(nominal=True)
-    assert gate_budget(program.mapped[0])["total"]["success_estimate"] >= 0.35
+    assert gate_budget(program.mapped[0]).total.success_estimate >= 0.35
     rows = {r.strategy: r for r in programs.rows()}
     assert set(rows) == {"trotter", "cycle-unitary"}
     assert rows["cycle-unitary"].two_qubit_per_cycle < rows["trotter"].two_qubit_per_cycle

@@ -9,12 +9,13 @@ from qiskit import QuantumCircuit, qasm3
 from qiskit_aer.library import SaveProbabilities
 
 from dnpqc import compile_program, parse_scenario
-from dnpqc.budget import gate_budget
-from dnpqc.cli import compile_text, main
+from dnpqc.cli import main
+from dnpqc.compile.budget import gate_budget
+from dnpqc.compile.mapping import map_program
+from dnpqc.compile.processor import make_processor
 from dnpqc.engines.circuit import density_matrix_simulator, run_program
-from dnpqc.mapping import map_program
-from dnpqc.processor import make_processor
-from dnpqc.qasm import dumps, hardware_program, header_lines
+from dnpqc.io.qasm import dumps, hardware_program, header_lines
+from dnpqc.pipeline.export import compile_text
 
 SCENARIO = """
 name = "qasm-test"
@@ -169,15 +170,15 @@ def test_header_gives_where_the_nv_ends(topology):
     proc = make_processor({"topology": topology})
     mapped = map_program(program.circuit, sc.system, proc, optimization_level=1)
     budget = gate_budget(mapped)
-    q = budget["qubits"]
-    assert q["nv"] != q["nv_final"]
+    q = budget.qubits
+    assert q.nv != q.nv_final
     head = "\n".join(header_lines(program, mapped, budget))
-    assert f"NV = ${q['nv']} at the start, ${q['nv_final']} at the end" in head
+    assert f"NV = ${q.nv} at the start, ${q.nv_final} at the end" in head
     local = {p: i for i, p in enumerate(mapped.region)}
     value = sc.sweep.values[1]
     nv = _final_single_qubit_state(program.circuit, 0, value)
-    assert np.allclose(_final_single_qubit_state(mapped.circuit, local[q["nv_final"]], value), nv)
-    for phys in q["nuclei_final"]:
+    assert np.allclose(_final_single_qubit_state(mapped.circuit, local[q.nv_final], value), nv)
+    for phys in q.nuclei_final:
         assert not np.allclose(_final_single_qubit_state(mapped.circuit, local[phys], value), nv)
 
 

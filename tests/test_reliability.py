@@ -11,10 +11,12 @@ import openqasm3
 import pytest
 from conftest import TWO_NUCLEI_SWEEP
 
-from dnpqc import cli, output, parse_scenario, qasm
+from dnpqc import cli, parse_scenario
 from dnpqc.cli import main
+from dnpqc.io import output, qasm
+from dnpqc.io.store import STORE_NAME, ResultsStore
+from dnpqc.pipeline import export, plan
 from dnpqc.resources import format_bytes
-from dnpqc.store import STORE_NAME, ResultsStore
 
 C2 = '[[spins.nuclei]]\nlabel = "C2"\na_par_hz = -30e3\na_perp_hz = 10e3\n'
 #: One nucleus, 3 points, 2 cycles of 8 steps: runs in a fraction of a second.
@@ -43,8 +45,8 @@ def no_work(monkeypatch):
 
     monkeypatch.setattr(cli, "simulate", forbidden)
     monkeypatch.setattr(cli, "run_scenario", forbidden)
-    monkeypatch.setattr(cli, "Programs", forbidden)
-    monkeypatch.setattr(cli, "scenario_programs", forbidden)
+    monkeypatch.setattr(export, "Programs", forbidden)
+    monkeypatch.setattr(plan, "scenario_programs", forbidden)
 
 
 def one_line_exit_2(argv, capsys, match=""):
@@ -132,7 +134,7 @@ def test_refused_run_keeps_a_previous_finished_run(tiny, tmp_path, capsys):
 
 def test_bad_scheduler_leaves_nothing(tiny, tmp_path, capsys, monkeypatch):
     pytest.importorskip("distributed")
-    monkeypatch.setattr("dnpqc.sweep.CONNECT_TIMEOUT_S", 1)
+    monkeypatch.setattr("dnpqc.pipeline.sweep.CONNECT_TIMEOUT_S", 1)
     out = tmp_path / "out"
     argv = ["run", str(tiny), "--out", str(out), "--engines", "exact"]
     one_line_exit_2([*argv, "--scheduler", "tcp://127.0.0.1:1"], capsys, "no Dask scheduler")
@@ -416,7 +418,7 @@ def test_tiny_angle_coefficients_are_refused_not_lost(tmp_path, capsys):
     from qiskit.circuit import Parameter
 
     from dnpqc.errors import ScenarioError
-    from dnpqc.expr import Poly
+    from dnpqc.physics.expr import Poly
 
     x = Parameter("x")
     assert float(Poly.variable("x", 1e-12).expression({"x": x}).bind({x: 2.0})) == 2e-12
@@ -459,7 +461,7 @@ def test_a_listener_that_is_not_a_scheduler_ends_in_one_line(
     import threading
     import time
 
-    monkeypatch.setattr("dnpqc.sweep.CONNECT_TIMEOUT_S", 1)
+    monkeypatch.setattr("dnpqc.pipeline.sweep.CONNECT_TIMEOUT_S", 1)
     server = socket.create_server(("127.0.0.1", 0))
     held = []
 
@@ -483,7 +485,7 @@ def test_typical_work_grows_with_the_window_not_the_steps(tiny, capsys, no_work)
     # a Chebyshev propagator takes about 2π·t·r products (Tal-Ezer & Kosloff 1984): a 1 s window
     # at ~1 MHz of Pauli weight is ~5e6 products per cycle, whatever trotter.steps says (a fuzz
     # case hung here)
-    from dnpqc.scenario import sweep_work
+    from dnpqc.io.scenario import sweep_work
 
     long = TINY.replace("interaction_time_s = 20e-6", "interaction_time_s = 1.0")
     long = long.replace("points = 3", "points = 40")

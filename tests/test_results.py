@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 
-from dnpqc.results import SweepResult, best_common, cycles_to_fraction, fit_buildup, peaks
+from dnpqc.engines.results import SweepResult, best_common, cycles_to_fraction, fit_buildup, peaks
 
 
 def _result(pol, values):
@@ -19,15 +19,15 @@ def test_parabolic_peak_refinement_is_exact_on_a_parabola():
     b = 0.5 - 0.005 * (x - 7.8) ** 2
     res = _result(np.stack([a, b], axis=-1)[:, None, :], x)
     p = peaks(res)
-    assert p["A"]["value"] == pytest.approx(4.3) and p["A"]["polarization"] == pytest.approx(1.0)
-    assert p["B"]["value"] == pytest.approx(7.8) and p["B"]["polarization"] == pytest.approx(0.5)
+    assert p["A"].value == pytest.approx(4.3) and p["A"].polarization == pytest.approx(1.0)
+    assert p["B"].value == pytest.approx(7.8) and p["B"].polarization == pytest.approx(0.5)
 
 
 def test_best_common_maximises_mean_magnitude():
     x = np.arange(5.0)
     pol = np.array([[0.9, 0.0], [0.6, -0.5], [0.1, -0.9], [0.0, 0.0], [0.2, 0.2]])[:, None, :]
     best = best_common(_result(pol, x))
-    assert best["value"] == 1.0 and best["min_polarization"] == pytest.approx(0.5)
+    assert best.value == 1.0 and best.min_polarization == pytest.approx(0.5)
 
 
 def test_geometric_buildup_fit():

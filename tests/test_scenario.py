@@ -8,7 +8,7 @@ import pytest
 from conftest import THREE_NUCLEI, pulsed_text
 
 from dnpqc import ScenarioError, demo_scenario, load_scenario, parse_scenario
-from dnpqc.protocols import PulsedBlock, SpinLock
+from dnpqc.physics.protocols import PulsedBlock, SpinLock
 
 PULSED = pulsed_text().replace('sequence = "pulsepol"\n', "")  # the default sequence
 

@@ -15,10 +15,10 @@ from conftest import THREE_NUCLEI
 
 from dnpqc import ScenarioError, parse_scenario
 from dnpqc.cli import main
-from dnpqc.job import engine_options, engine_targets
-from dnpqc.store import STORE_NAME, ResultsStore
-from dnpqc.sweep import run_engines as run_targets
-from dnpqc.sweep import split_tasks
+from dnpqc.io.store import STORE_NAME, ResultsStore
+from dnpqc.pipeline.job import engine_options, engine_targets
+from dnpqc.pipeline.sweep import run_engines as run_targets
+from dnpqc.pipeline.sweep import split_tasks
 
 
 def run_engines(sc, engines, **kwargs):
@@ -159,7 +159,7 @@ def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
 
 ORPHAN_SCRIPT = """
 import sys, time
-from dnpqc.sweep import _executor
+from dnpqc.pipeline.sweep import _executor
 pool = _executor(2, None)
 futures = [pool.submit(time.sleep, 60) for _ in range(2)]
 time.sleep(1.0)

@@ -12,9 +12,7 @@ from qiskit.quantum_info import Operator, SparsePauliOp
 from qiskit_aer import AerSimulator
 
 from dnpqc import compile_program
-from dnpqc.expr import Poly
-from dnpqc.protocols import Linear
-from dnpqc.trotter import (
+from dnpqc.compile.trotter import (
     Layer,
     PauliRotation,
     _append_rotation,
@@ -22,6 +20,8 @@ from dnpqc.trotter import (
     pauli_terms,
     prepare_mixed_nuclei,
 )
+from dnpqc.physics.expr import Poly
+from dnpqc.physics.protocols import Linear
 
 
 @pytest.mark.parametrize(

@@ -8,7 +8,7 @@ from conftest import AZIMUTH_TRIPLE, THREE_NUCLEI, pulsed_text
 
 from dnpqc import parse_scenario, simulate
 from dnpqc.errors import RunError
-from dnpqc.model import Nucleus, SpinSystem
+from dnpqc.physics.model import Nucleus, SpinSystem
 from dnpqc.resources import require_memory
 
 SIX = (
@@ -72,7 +72,7 @@ def test_chebyshev_propagator_equals_scipy_expm_multiply():
     import scipy.sparse.linalg
 
     from dnpqc.engines.typical import ScaledHamiltonian, chebyshev_propagate
-    from dnpqc.model import hamiltonian
+    from dnpqc.physics.model import hamiltonian
 
     system = SpinSystem(0.03, tuple(Nucleus(f"N{j}", 8e3 * j - 9e3, 4e3 * j) for j in (1, 2, 3)))
     h = hamiltonian(system, rabi_hz=330e3, detuning_hz=2e3).to_matrix(sparse=True).tocsr()

@@ -7,12 +7,15 @@ import pytest
 from conftest import THREE_NUCLEI, one_nucleus
 
 from dnpqc import parse_scenario, simulate
+from dnpqc.analysis.codesign import StepsAdvice, StepsRow
+from dnpqc.analysis.verdicts import budget_warnings, compare_to_exact, run_warnings
+from dnpqc.compile.strategy import ApproximationError
 from dnpqc.engines.noisy import BASELINE_ENGINE
-from dnpqc.model import nuclear_frequency_hz
-from dnpqc.report import axis_label, count_of, format_value
+from dnpqc.engines.results import SweepResult, best_common, saturation
+from dnpqc.io.report import axis_label
+from dnpqc.physics.model import nuclear_frequency_hz
 from dnpqc.resources import format_bytes
-from dnpqc.results import SweepResult, best_common, saturation
-from dnpqc.verdicts import budget_warnings, compare_to_exact, run_warnings
+from dnpqc.text import count_of, format_value
 
 X = np.linspace(300e3, 360e3, 13)
 
@@ -35,9 +38,9 @@ def test_baseline_subtraction_measures_the_artefact():
     noisy = _result("noisy", [_bump(330e3, -0.3) + artefact])
     base = _result(BASELINE_ENGINE, [artefact])
     comp = compare_to_exact(exact, noisy, baseline=base)
-    a = comp["per_nucleus"]["A"]
-    assert a["found"] and a["signs_agree"] and a["contrast_ratio"] == pytest.approx(0.75)
-    assert comp["baseline"].startswith(BASELINE_ENGINE)
+    a = comp.per_nucleus["A"]
+    assert a.found and a.signs_agree and a.contrast_ratio == pytest.approx(0.75)
+    assert comp.baseline.startswith(BASELINE_ENGINE)
 
 
 def test_sign_flip_and_edge_peaks_are_never_found():
@@ -45,18 +48,18 @@ def test_sign_flip_and_edge_peaks_are_never_found():
     # A: amplitude damping flipped the sign (+0.20 against -0.245); B: peak on the sweep edge
     noisy = _result("noisy", [_bump(330e3, 0.2), _bump(360e3, 0.3)])
     comp = compare_to_exact(exact, noisy, baseline=_result(BASELINE_ENGINE, [0 * X, 0 * X]))
-    per = comp["per_nucleus"]
-    assert not per["A"]["found"] and not per["A"]["signs_agree"]
-    assert not per["B"]["found"] and per["B"]["at_edge"]
-    assert "on the sweep edge, not counted: B" in comp["verdict"]
-    assert "sign opposite to exact: A" in comp["verdict"]
-    assert not comp["all_found"]
+    per = comp.per_nucleus
+    assert not per["A"].found and not per["A"].signs_agree
+    assert not per["B"].found and per["B"].at_edge
+    assert "on the sweep edge, not counted: B" in comp.verdict
+    assert "sign opposite to exact: A" in comp.verdict
+    assert not comp.all_found
 
 
 def test_best_common_value_is_questioned():
     exact = _result("exact", [_bump(330e3, 0.4)])
     comp = compare_to_exact(exact, exact, best_common=(330e3, 320e3))
-    assert not comp["best_common_found"] and "best common value off" in comp["verdict"]
+    assert not comp.best_common_found and "best common value off" in comp.verdict
 
 
 def test_zero_transfer_baseline_is_zero_without_noise_and_the_artefact_with_it():
@@ -89,18 +92,18 @@ def test_saturation_headline_is_the_slowest_nucleus():
     res = SweepResult("exact", "rabi_hz", np.array([1.0]), ("A", "B"), pol)
     sat = saturation(res, 0)
     expected = math.ceil(math.log(0.1) / math.log(0.98))
-    assert sat["slowest"] == "B" and sat["cycles"] == sat["per_nucleus"]["B"]["cycles"]
-    assert abs(sat["cycles"] - expected) <= 2 and sat["extrapolated"]
-    assert sat["per_nucleus"]["A"]["cycles"] <= 5 and sat["mean_cycles"] < sat["cycles"]
+    assert sat.slowest == "B" and sat.cycles == sat.per_nucleus["B"].cycles
+    assert abs(sat.cycles - expected) <= 2 and sat.extrapolated
+    assert sat.per_nucleus["A"].cycles <= 5 and sat.mean_cycles < sat.cycles
 
 
 def test_maximin_choice():
     x = np.arange(4.0)
     pol = np.array([[0.9, 0.0], [0.5, 0.3], [0.1, 0.5], [0.0, 0.1]])[:, None, :]
     best = best_common(SweepResult("exact", "rabi_hz", x, ("A", "B"), pol))
-    assert best["value"] == 0.0  # mean |P| 0.45 there
-    assert best["maximin"]["value"] == 1.0 and best["maximin"]["min_polarization"] == 0.3
-    assert "mean" in best["maximises"]
+    assert best.value == 0.0  # mean |P| 0.45 there
+    assert best.maximin.value == 1.0 and best.maximin.min_polarization == 0.3
+    assert "mean" in best.maximises
 
 
 def _scenario(**kw):
@@ -129,7 +132,8 @@ def test_warnings_name_each_misleading_answer():
     assert any(
         "outside the plausible" in w for w in run_warnings(tiny.workload(), _result("exact", [X]))
     )
-    ladder = {"ladder": [{"total_error": 1.0}, {"total_error": 1.3}]}
+    rows = [StepsRow(s, 0.5, 10.0, 0.5 - s / 10, 1.0 + s / 10) for s in (0, 3)]
+    ladder = StepsAdvice(0.01, None, rows, rows[0])
     assert any(
         "step advice" in w
         for w in run_warnings(sc.workload(), _result("exact", [X]), steps_advice=ladder)
@@ -159,12 +163,11 @@ def test_detuning_sweep_reports_both_matches_and_the_engine_shows_them():
 
 def test_budget_warnings():
     # the case of the issue: 1024 steps advised with a success estimate of 1.7e-244
-    ladder = [{"steps": 1024, "trotter_error": 0.01, "success_estimate": 1.7e-244}]
-    ladder[0]["total_error"] = 0.01 + 1 - 1.7e-244
-    data = {"trotter_error": {"value": 0.21}, "steps_advice": {"ladder": ladder}}
-    warnings = budget_warnings(data)
+    row = StepsRow(1024, 0.01, 100.0, 1.7e-244, 0.01 + 1 - 1.7e-244)
+    advice = StepsAdvice(0.01, row, [row], row)
+    warnings = budget_warnings(ApproximationError(0.21, "measured", 5), advice)
     assert len(warnings) == 2 and "0.21 exceeds 0.05" in warnings[0]
-    assert budget_warnings({"trotter_error": {"value": 0.01}}) == []
+    assert budget_warnings(ApproximationError(0.01, "measured", 5)) == []
 
 
 def test_readable_numbers_and_labels():

@@ -9,12 +9,12 @@ The public API, for notebooks and scripts:
 >>> result = simulate(sc, "exact")          # .polarization[point, cycle, nucleus]
 """
 
+from .compile.program import Program, Workload
+from .engines.results import SweepResult
 from .errors import RunError, ScenarioError
-from .job import RunOutcome, compile_program, run_scenario, simulate
-from .model import Coupling, Nucleus, SpinSystem, hamiltonian
-from .program import Program, Workload
-from .results import SweepResult
-from .scenario import Scenario, demo_scenario, load_scenario, parse_scenario, scenario_from_dict
+from .io.scenario import Scenario, demo_scenario, load_scenario, parse_scenario, scenario_from_dict
+from .physics.model import Coupling, Nucleus, SpinSystem, hamiltonian
+from .pipeline.job import RunOutcome, compile_program, run_scenario, simulate
 
 __all__ = [
     "Coupling",

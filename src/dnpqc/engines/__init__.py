@@ -11,17 +11,20 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Literal, get_args
 
+from ..compile.noise import NoiseSettings
+from ..compile.program import Program, Workload
 from ..errors import ScenarioError
-from ..noise import NoiseSettings
-from ..program import Program, Workload
-from ..results import SweepResult
 from .circuit import simulate_trotter
 from .exact import simulate_exact
 from .noisy import BASELINE_ENGINE, simulate_noisy, simulate_noisy_baseline
+from .results import SweepResult
 from .typical import TypicalSettings, simulate_typical
 
-ENGINES: tuple[str, ...] = ("exact", "trotter", "noisy", BASELINE_ENGINE, "typical")
+#: The engines, by their canonical names (`noisy-baseline` is `noisy.BASELINE_ENGINE`).
+EngineName = Literal["exact", "trotter", "noisy", "noisy-baseline", "typical"]
+ENGINES: tuple[EngineName, ...] = get_args(EngineName)
 #: Other accepted names: `noiseless` is the compiled program without noise.
 ENGINE_ALIASES: dict[str, str] = {"noiseless": "trotter"}
 #: Engines that run circuits (and so need a compiled program); the noisy ones need it mapped.
@@ -37,7 +40,7 @@ class EngineOptions:
     typical: TypicalSettings = field(default_factory=TypicalSettings)
 
 
-def engine_name(name: str) -> str:
+def engine_name(name: str) -> EngineName:
     """The canonical engine name of `name` (aliases resolved); refuses unknown names."""
     canonical = ENGINE_ALIASES.get(name, name)
     if canonical not in ENGINES:

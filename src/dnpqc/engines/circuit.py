@@ -10,18 +10,18 @@ they would be sampled per shot).
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 
 import numpy as np
 from qiskit import QuantumCircuit
 from qiskit_aer import AerSimulator
 
-from ..imperfections import DETUNING_ERROR, DRIVE_ERROR, average_nodes
-from ..model import z_signs
-from ..program import Program, Workload
+from ..compile.program import Program, Workload
+from ..compile.trotter import cycle_label
+from ..physics.imperfections import DETUNING_ERROR, DRIVE_ERROR, average_nodes
+from ..physics.model import z_signs
 from ..resources import density_matrix_bytes, process_threads, require_memory
-from ..results import SweepResult
-from ..trotter import cycle_label
+from .results import SweepResult
 
 #: Experiments per Aer run. Aer converts a circuit once per run (~15-30 µs per gate) and then
 #: binds each experiment in C++, so large batches amortise the conversion; progress per batch.
@@ -49,10 +49,15 @@ def density_matrix_simulator(**options) -> AerSimulator:
     return AerSimulator(method="density_matrix", **{**defaults, **options})
 
 
+def saved_probabilities(data: dict, cycles: Iterable[int]) -> np.ndarray:
+    """The nuclear probabilities one experiment saved after each of `cycles` (1-based):
+    (cycles, 2^n), or (cycles, shots, 2^n) when saved per shot."""
+    return np.array([np.asarray(data[cycle_label(c)], dtype=float) for c in cycles])
+
+
 def nuclear_polarizations(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
     """(cycles, n) <Z_j> from the saved nuclear probabilities of one experiment."""
-    signs = z_signs(num_nuclei)
-    return np.array([np.asarray(data[cycle_label(c)]) @ signs for c in range(1, cycles + 1)])
+    return saved_probabilities(data, range(1, cycles + 1)) @ z_signs(num_nuclei)
 
 
 def row_columns(work: Workload) -> dict[str, np.ndarray]:

@@ -8,11 +8,11 @@ from collections.abc import Callable
 
 import numpy as np
 
-from ..imperfections import average_nodes
-from ..program import Workload, row_unitaries
-from ..propagation import Propagators, polarization_by_cycle
+from ..compile.program import Workload, row_unitaries
+from ..physics.imperfections import average_nodes
+from ..physics.propagation import Propagators, polarization_by_cycle
 from ..resources import require_memory
-from ..results import SweepResult
+from .results import SweepResult
 
 
 def simulate_exact(work: Workload, *, on_point: Callable[[], None] | None = None) -> SweepResult:

@@ -20,26 +20,26 @@ from qiskit_aer import AerSimulator
 from qiskit_aer.library import SaveProbabilities
 from qiskit_aer.noise import NoiseModel
 
-from ..errors import RunError
-from ..model import z_signs
-from ..noise import (
+from ..compile.noise import (
     NoiseSettings,
     noise_model,
     readout_factor,
     with_idle_relaxation,
     without_transfer,
 )
-from ..program import Program
+from ..compile.program import Program
+from ..errors import RunError
+from ..physics.model import z_signs
 from ..resources import density_matrix_bytes, format_bytes, memory_budget_bytes
-from ..results import SweepResult
-from ..trotter import cycle_label
 from .circuit import (
     density_matrix_simulator,
     nuclear_polarizations,
     row_columns,
     run_rows,
+    saved_probabilities,
     simulate_circuits,
 )
+from .results import SweepResult
 
 
 def choose_method(noise: NoiseSettings, num_qubits: int) -> str:
@@ -71,10 +71,8 @@ def _trajectory_reader(factor: float) -> Callable[[dict, int, int], np.ndarray]:
     """Mean and standard error over shots, as a (2, cycles, n) array."""
 
     def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
-        signs = z_signs(num_nuclei)
-        per_shot = np.array(
-            [np.asarray(data[cycle_label(c)]) @ signs for c in range(1, cycles + 1)]
-        )  # (cycles, shots, n)
+        per_shot = saved_probabilities(data, range(1, cycles + 1)) @ z_signs(num_nuclei)
+        # (cycles, shots, n)
         shots = per_shot.shape[1]
         mean = per_shot.mean(axis=1)
         err = per_shot.std(axis=1, ddof=1) / np.sqrt(shots)

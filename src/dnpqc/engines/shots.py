@@ -19,12 +19,17 @@ from collections.abc import Callable
 
 import numpy as np
 
+from ..compile.noise import NoiseSettings, with_readout_dephasing, without_transfer
+from ..compile.program import Program
 from ..errors import RunError
-from ..imperfections import average_nodes
-from ..noise import NoiseSettings, with_readout_dephasing, without_transfer
-from ..program import Program
-from ..trotter import cycle_label
-from .circuit import density_matrix_simulator, point_ticker, row_columns, run_rows
+from ..physics.imperfections import average_nodes
+from .circuit import (
+    density_matrix_simulator,
+    point_ticker,
+    row_columns,
+    run_rows,
+    saved_probabilities,
+)
 from .noisy import choose_method, noisy_circuits
 
 
@@ -62,7 +67,7 @@ def readout_distributions(
     registers = range(1, cycles + 1) if measure_each_cycle else (cycles,)
 
     def read(data: dict, _cycles: int, _n: int) -> np.ndarray:
-        return np.array([np.asarray(data[cycle_label(c)], dtype=float) for c in registers])
+        return saved_probabilities(data, registers)
 
     weights = work.weights()
     raw = run_rows(

@@ -30,12 +30,12 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.special import jv
 
-from ..model import hamiltonian, z_signs
-from ..program import Workload
-from ..propagation import nv_rotation
-from ..protocols import Evolve, Pulse, perturbed
+from ..compile.program import Workload
+from ..physics.model import hamiltonian, z_signs
+from ..physics.propagation import nv_rotation
+from ..physics.protocols import Evolve, Pulse, perturbed
 from ..resources import require_memory
-from ..results import SweepResult
+from .results import SweepResult
 
 
 @dataclass(frozen=True)

@@ -13,7 +13,7 @@ import math
 from dataclasses import dataclass
 from typing import ClassVar, Literal
 
-from .errors import ScenarioError
+from ..errors import ScenarioError
 from .model import SpinSystem, nuclear_frequency_hz
 
 

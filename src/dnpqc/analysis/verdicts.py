@@ -16,14 +16,25 @@ two matches of a detuning sweep.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .model import effective_perp_hz, nuclear_frequency_hz
-from .program import Workload
-from .protocols import SpinLock, expected_resonances
-from .report import format_value
-from .results import MEASURED_ENGINE, NO_TRANSFER, SweepResult, refined_peak
+from ..compile.program import Workload
+from ..compile.strategy import ApproximationError
+from ..engines.results import (
+    MEASURED_ENGINE,
+    NO_TRANSFER,
+    BestCommon,
+    Saturation,
+    SweepResult,
+    refined_peak,
+)
+from ..physics.model import effective_perp_hz, nuclear_frequency_hz
+from ..physics.protocols import SpinLock, expected_resonances
+from ..records import Record
+from ..text import format_value
+from .codesign import StepsAdvice
 
 #: Warning thresholds (Trotter error in |ΔP|; the others as stated in each check).
 TROTTER_ERROR_LIMIT = 0.05
@@ -38,9 +49,21 @@ def at_edge(result: SweepResult, index: int) -> bool:
     return len(result.values) > 1 and index in (0, len(result.values) - 1)
 
 
+@dataclass(frozen=True)
+class SignedPeak(Record):
+    """The peak of |P - baseline| of one nucleus: its refined swept value and height, the
+    signed P - baseline at its grid point `index`, and whether that point is on the edge."""
+
+    value: float
+    magnitude: float
+    polarization: float
+    index: int
+    at_edge: bool
+
+
 def signed_peaks(
     result: SweepResult, cycle: int = -1, baseline: np.ndarray | None = None
-) -> dict[str, dict[str, object]]:
+) -> dict[str, SignedPeak]:
     """Per nucleus: the peak of |P - baseline| after `cycle` (baseline: (points, nuclei) or
     None for 0), with the signed P - baseline at the peak's grid point and its edge flag."""
     pol = result.polarization[:, cycle, :]
@@ -51,13 +74,7 @@ def signed_peaks(
         mags = np.abs(pol[:, j])
         i = int(np.argmax(mags))
         value, height = refined_peak(result.values, mags)
-        out[label] = {
-            "value": value,
-            "magnitude": height,
-            "polarization": float(pol[i, j]),
-            "index": i,
-            "at_edge": at_edge(result, i),
-        }
+        out[label] = SignedPeak(value, height, float(pol[i, j]), i, at_edge(result, i))
     return out
 
 
@@ -76,6 +93,45 @@ def _baseline(
     return None, "none"
 
 
+@dataclass(frozen=True)
+class NucleusComparison(Record):
+    """One nucleus of an engine against exact: its peak and shift from the exact one, the
+    contrast ratio of |P - baseline|, the signed values, and whether the peak was found."""
+
+    peak: float
+    shift: float
+    contrast_ratio: float
+    signed_polarization: float
+    exact_polarization: float
+    signs_agree: bool
+    at_edge: bool
+    found: bool
+
+
+@dataclass(frozen=True)
+class Comparison(Record):
+    """An engine against the exact one (`compare_to_exact`); `best_common*` only when the best
+    common values were given, `saturation` (the engine's mean |P|sat) when the run has it."""
+
+    engine: str
+    baseline: str
+    resolution: float
+    per_nucleus: dict[str, NucleusComparison]
+    all_found: bool
+    best_common: float | None = None
+    best_common_shift: float | None = None
+    best_common_found: bool | None = None
+    verdict: str = ""
+    saturation: float | None = None
+
+    def to_json(self) -> dict[str, object]:
+        out = super().to_json()
+        if self.best_common is None:
+            for key in ("best_common", "best_common_shift", "best_common_found"):
+                del out[key]
+        return out
+
+
 def compare_to_exact(
     exact: SweepResult,
     other: SweepResult,
@@ -84,7 +140,7 @@ def compare_to_exact(
     best_common: tuple[float, float] | None = None,
     cycle: int = -1,
     subtracted: str | None = None,
-) -> dict[str, object]:
+) -> Comparison:
     """`other` against the exact engine, on signed P minus the zero-transfer baseline
     (`subtracted`: a note that `other` has had its baseline removed already).
 
@@ -96,55 +152,52 @@ def compare_to_exact(
     step = float(abs(values[1] - values[0])) if len(values) > 1 else 0.0
     base, described = _baseline(other, baseline, cycle, subtracted)
     ref, mine = signed_peaks(exact, cycle), signed_peaks(other, cycle, base)
-    per: dict[str, dict[str, object]] = {}
+    per: dict[str, NucleusComparison] = {}
     for label, peak in ref.items():
         m = mine[label]
-        shift = m["value"] - peak["value"]
-        signs_agree = bool(np.sign(m["polarization"]) == np.sign(peak["polarization"]))
-        edge = bool(m["at_edge"] or peak["at_edge"])
-        per[label] = {
-            "peak": m["value"],
-            "shift": shift,
-            "contrast_ratio": m["magnitude"] / peak["magnitude"]
-            if peak["magnitude"] > 0
-            else float("nan"),
-            "signed_polarization": m["polarization"],
-            "exact_polarization": peak["polarization"],
-            "signs_agree": signs_agree,
-            "at_edge": edge,
-            "found": abs(shift) <= step and not edge and signs_agree,
-        }
-    out: dict[str, object] = {
-        "engine": other.engine,
-        "baseline": described,
-        "resolution": step,
-        "per_nucleus": per,
-        "all_found": all(p["found"] for p in per.values()),
-    }
+        shift = m.value - peak.value
+        signs_agree = bool(np.sign(m.polarization) == np.sign(peak.polarization))
+        edge = bool(m.at_edge or peak.at_edge)
+        per[label] = NucleusComparison(
+            peak=m.value,
+            shift=shift,
+            contrast_ratio=m.magnitude / peak.magnitude if peak.magnitude > 0 else float("nan"),
+            signed_polarization=m.polarization,
+            exact_polarization=peak.polarization,
+            signs_agree=signs_agree,
+            at_edge=edge,
+            found=abs(shift) <= step and not edge and signs_agree,
+        )
+    common = {}
     if best_common is not None:
-        out["best_common"] = best_common[1]
-        out["best_common_shift"] = best_common[1] - best_common[0]
-        out["best_common_found"] = abs(best_common[1] - best_common[0]) <= step
-    out["verdict"] = _verdict(out, exact.parameter)
-    return out
+        shift = best_common[1] - best_common[0]
+        common = {
+            "best_common": best_common[1],
+            "best_common_shift": shift,
+            "best_common_found": abs(shift) <= step,
+        }
+    comp = Comparison(
+        other.engine, described, step, per, all(p.found for p in per.values()), **common
+    )
+    return replace(comp, verdict=_verdict(comp, exact.parameter))
 
 
-def _verdict(comp: dict, parameter: str) -> str:
-    per = comp["per_nucleus"]
-    found = sum(p["found"] for p in per.values())
+def _verdict(comp: Comparison, parameter: str) -> str:
+    per = comp.per_nucleus
+    found = sum(p.found for p in per.values())
     parts = [
-        f"{comp['engine']}: {found} of {len(per)} peaks found within the sweep resolution "
-        f"({format_value(parameter, comp['resolution'])}) of the exact peaks, signed P against "
-        f"the baseline {comp['baseline']}"
+        f"{comp.engine}: {found} of {len(per)} peaks found within the sweep resolution "
+        f"({format_value(parameter, comp.resolution)}) of the exact peaks, signed P against "
+        f"the baseline {comp.baseline}"
     ]
-    edge = [label for label, p in per.items() if p["at_edge"]]
+    edge = [label for label, p in per.items() if p.at_edge]
     if edge:
         parts.append(f"on the sweep edge, not counted: {', '.join(edge)}")
-    flipped = [label for label, p in per.items() if not p["signs_agree"]]
+    flipped = [label for label, p in per.items() if not p.signs_agree]
     if flipped:
         parts.append(f"sign opposite to exact: {', '.join(flipped)}")
-    if "best_common_found" in comp and not comp["best_common_found"]:
-        shift = format_value(parameter, comp["best_common_shift"])
+    if comp.best_common_found is False:
+        shift = format_value(parameter, comp.best_common_shift)
         parts.append(f"best common value off the exact one by {shift}")
     return "; ".join(parts)
 
@@ -154,7 +207,7 @@ def run_warnings(
     reference: SweepResult,
     *,
     trotter_error: float | None = None,
-    steps_advice: dict | None = None,
+    steps_advice: StepsAdvice | None = None,
 ) -> list[str]:
     """Every warning for a run, as one-line messages (empty when nothing misleads)."""
     checks = [
@@ -172,10 +225,12 @@ def run_warnings(
     return [w for check in checks for w in check]
 
 
-def budget_warnings(budget: dict) -> list[str]:
+def budget_warnings(
+    trotter_error: ApproximationError, steps_advice: StepsAdvice | None = None
+) -> list[str]:
     """Warnings of `dnpqc budget`: a large Trotter error, step advice with no usable count."""
-    error = budget.get("trotter_error", {}).get("value")
-    return _trotter_too_large(error) + _hopeless_advice(budget.get("steps_advice", {}))
+    hopeless = _hopeless_advice(steps_advice) if steps_advice is not None else []
+    return _trotter_too_large(trotter_error.value) + hopeless
 
 
 def _trotter_too_large(error: float | None) -> list[str]:
@@ -201,9 +256,9 @@ def _edge_peaks(result: SweepResult) -> list[str]:
     par = result.parameter
     out = []
     for label, peak in signed_peaks(result).items():
-        if peak["at_edge"] and peak["magnitude"] >= NO_TRANSFER:
+        if peak.at_edge and peak.magnitude >= NO_TRANSFER:
             out.append(
-                f"{label}: the peak lies on the sweep edge ({format_value(par, peak['value'])}); "
+                f"{label}: the peak lies on the sweep edge ({format_value(par, peak.value)}); "
                 "the true maximum may lie outside the sweep"
             )
     return out
@@ -301,9 +356,8 @@ def _detuning_matches(work: Workload) -> list[str]:
     ]
 
 
-def _hopeless_advice(advice: dict) -> list[str]:
-    ladder = advice.get("ladder", [])
-    if ladder and all(r["total_error"] >= 1.0 for r in ladder):
+def _hopeless_advice(advice: StepsAdvice) -> list[str]:
+    if advice.ladder and all(r.total_error >= 1.0 for r in advice.ladder):
         return [
             "step advice: every step count tried has Trotter error + (1 - S) ≥ 1, so none is "
             "usable on this processor; the 'optimum' is only the least bad"
@@ -311,34 +365,31 @@ def _hopeless_advice(advice: dict) -> list[str]:
     return []
 
 
-def best_common_lines(parameter: str, common: dict) -> list[str]:
+def best_common_lines(parameter: str, common: BestCommon) -> list[str]:
     """Summary lines: what the best common value maximises, and the worst-nucleus choice."""
-    worst = common["maximin"]
+    worst = common.maximin
     return [
         f"  best common {parameter} (maximises the mean |P|): "
-        f"{format_value(parameter, common['value'])} (mean |P| "
-        f"{common['mean_polarization']:.3f}, worst {common['min_polarization']:.3f})",
+        f"{format_value(parameter, common.value)} (mean |P| "
+        f"{common.mean_polarization:.3f}, worst {common.min_polarization:.3f})",
         f"  worst-nucleus choice (maximises the smallest |P|): "
-        f"{format_value(parameter, worst['value'])} (mean |P| {worst['mean_polarization']:.3f}, "
-        f"worst {worst['min_polarization']:.3f})",
+        f"{format_value(parameter, worst.value)} (mean |P| {worst.mean_polarization:.3f}, "
+        f"worst {worst.min_polarization:.3f})",
     ]
 
 
-def saturation_lines(sat: dict) -> list[str]:
+def saturation_lines(sat: Saturation) -> list[str]:
     """Summary lines: the slowest nucleus as the headline, then every nucleus."""
-    fraction = f"{sat['fraction']:.0%}"
-    if sat["slowest"] is None:
+    fraction = f"{sat.fraction:.0%}"
+    if sat.slowest is None:
         return ["  saturation: no nucleus is polarized there"]
-    note = " (extrapolated beyond the run)" if sat["extrapolated"] else ""
-    per = sat["per_nucleus"]
+    note = " (extrapolated beyond the run)" if sat.extrapolated else ""
+    per = sat.per_nucleus
     each = ", ".join(
-        f"{label} {p['cycles']} ({p['saturation']:.3f})"
-        for label, p in per.items()
-        if p["polarized"]
+        f"{label} {p.cycles} ({p.saturation:.3f})" for label, p in per.items() if p.polarized
     )
-    slowest = sat["slowest"]
     return [
-        f"  saturation there: the slowest nucleus, {slowest}, needs {sat['cycles']} cycles to "
-        f"reach {fraction} of its |P|sat {per[slowest]['saturation']:.3f}{note}",
+        f"  saturation there: the slowest nucleus, {sat.slowest}, needs {sat.cycles} cycles to "
+        f"reach {fraction} of its |P|sat {per[sat.slowest].saturation:.3f}{note}",
         f"  cycles to {fraction} (|P|sat) per nucleus: {each}",
     ]

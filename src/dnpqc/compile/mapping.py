@@ -30,7 +30,7 @@ from qiskit import QuantumCircuit
 from qiskit.converters import dag_to_circuit
 from qiskit.transpiler import generate_preset_pass_manager
 
-from .model import SpinSystem
+from ..physics.model import SpinSystem
 from .processor import Processor, build_target, check_fits
 
 DEFAULT_SEED = 1234

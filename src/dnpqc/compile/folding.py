@@ -20,7 +20,7 @@ from dataclasses import replace
 from qiskit import QuantumCircuit
 from qiskit.circuit import Barrier
 
-from .errors import ScenarioError
+from ..errors import ScenarioError
 from .mapping import FOLD_FENCE, MappingSettings
 from .program import Program, baseline_program
 

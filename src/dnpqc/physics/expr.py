@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 from qiskit.circuit import Parameter, ParameterExpression
 
-from .errors import ScenarioError
+from ..errors import ScenarioError
 from .protocols import Linear
 
 Monomial = tuple[str, ...]

@@ -10,13 +10,13 @@ import math
 
 import numpy as np
 
+from ..errors import ScenarioError
 from .constants import (
     C13_NATURAL_ABUNDANCE,
     DIAMOND_LATTICE_NM,
     electron_nuclear_dipolar_hz_nm3,
     nuclear_dipolar_hz_nm3,
 )
-from .errors import ScenarioError
 
 # Rows: unit vectors of the NV frame (x, y, z) in cubic-lattice coordinates; z = [111]/√3.
 _NV_FRAME = np.array(

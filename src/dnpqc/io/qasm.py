@@ -18,12 +18,13 @@ from pathlib import Path
 
 from qiskit import ClassicalRegister, QuantumCircuit, qasm3, transpile
 
-from .mapping import MappedProgram
+from ..compile.budget import GateBudget
+from ..compile.mapping import MappedProgram
+from ..compile.processor import build_target
+from ..compile.program import Program
+from ..compile.trotter import cycle_label
+from ..text import count_of
 from .output import one_line, write_text
-from .processor import build_target
-from .program import Program
-from .report import count_of
-from .trotter import cycle_label
 
 READOUT = "nuclei"
 
@@ -69,15 +70,14 @@ def hardware_program(
 def header_lines(
     program: Program,
     mapped: MappedProgram,
-    budget: dict,
+    budget: GateBudget,
     bound: float | None = None,
     variant: list[str] | None = None,
 ) -> list[str]:
     """Comment lines: scenario, strategy, convention, processor, qubit map and budget summary."""
     work = program.workload
-    proc = budget["processor"]
-    q = budget["qubits"]
-    per, total = budget["per_cycle"], budget["total"]
+    proc, q = budget.processor, budget.qubits
+    per, total = budget.per_cycle, budget.total
     parameter = work.parameter
     lines = [
         f"dnpqc program for scenario {work.name!r} (content hash {work.digest}):",
@@ -86,19 +86,19 @@ def header_lines(
         "Model: H/h in Hz, U = exp(-2πi·H·t); NV qubit {|0> = m_s 0, |1> = m_s -1}, nuclei",
         "  |0> = spin up along B0; the nuclei start maximally mixed (H, CX to the NV, NV reset).",
         "  Readout bit j = nucleus j+1; its polarization is P = 1 - 2·mean(bit).",
-        f"Processor: {proc['name']} ({proc['num_qubits']} qubits, native {proc['native_gates']}),",
+        f"Processor: {proc.name} ({proc.num_qubits} qubits, native {proc.native_gates}),",
         f"  layout {mapped.layout_method}.",
-        f"Qubit map (physical): NV = ${q['nv']} at the start, ${q['nv_final']} at the end",
+        f"Qubit map (physical): NV = ${q.nv} at the start, ${q.nv_final} at the end",
     ]
     for label, first, last in zip(
-        work.system.labels, q["nuclei_initial"], q["nuclei_final"], strict=True
+        work.system.labels, q.nuclei_initial, q.nuclei_final, strict=True
     ):
         lines.append(f"  {label} = ${first} at the start, ${last} at the end")
     lines += [
-        f"Per cycle: {per['two_qubit']:.0f} two-qubit gates, {per['one_qubit']:.0f} one-qubit "
-        f"gates, {per['swaps']:.0f} SWAPs, {per['duration_s'] * 1e6:.4g} µs.",
-        f"Whole program: {total['two_qubit']} two-qubit gates, {total['duration_s'] * 1e6:.4g} "
-        f"µs, success estimate {total['success_estimate']:.3g}.",
+        f"Per cycle: {per.two_qubit:.0f} two-qubit gates, {per.one_qubit:.0f} one-qubit "
+        f"gates, {per.swaps:.0f} SWAPs, {per.duration_s * 1e6:.4g} µs.",
+        f"Whole program: {total.two_qubit} two-qubit gates, {total.duration_s * 1e6:.4g} "
+        f"µs, success estimate {total.success_estimate:.3g}.",
     ]
     if bound is None:
         lines.append(f"Input `{parameter}`: the swept quantity in SI units (Hz or s).")

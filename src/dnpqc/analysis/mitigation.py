@@ -29,8 +29,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..errors import ScenarioError
 from .counts import BASELINE, PROGRAM, Estimate, MeasuredCounts
-from .errors import ScenarioError
 
 MITIGATIONS = ("readout", "baseline", "zne")
 EXTRAPOLATIONS = ("richardson", "exponential")

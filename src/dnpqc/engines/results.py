@@ -13,6 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..records import Record
+
 #: The engine of measured counts (`dnpqc run --counts`): not a simulation.
 MEASURED_ENGINE = "measured"
 
@@ -68,37 +70,62 @@ def refined_peak(values: np.ndarray, curve: np.ndarray) -> tuple[float, float]:
     return float(values[i]), float(curve[i])
 
 
-def peaks(result: SweepResult, cycle: int = -1) -> dict[str, dict[str, float]]:
+@dataclass(frozen=True)
+class Peak(Record):
+    """The swept value of largest |P| of one nucleus, and that |P|."""
+
+    value: float
+    polarization: float
+
+
+def peaks(result: SweepResult, cycle: int = -1) -> dict[str, Peak]:
     """Per nucleus: the swept value of largest |P| after `cycle` (index), and that |P|."""
     mags = np.abs(result.polarization[:, cycle, :])
     out = {}
     for j, label in enumerate(result.nuclei):
         value, height = refined_peak(result.values, mags[:, j])
-        out[label] = {"value": value, "polarization": height}
+        out[label] = Peak(value, height)
     return out
 
 
-def best_common(result: SweepResult, cycle: int = -1) -> dict[str, object]:
+@dataclass(frozen=True)
+class CommonValue(Record):
+    """One grid value for all nuclei at once: what it maximises, where, and the |P| there."""
+
+    maximises: str
+    index: int
+    value: float
+    mean_polarization: float
+    min_polarization: float
+
+
+@dataclass(frozen=True)
+class BestCommon(CommonValue):
+    """The grid value of largest mean |P|, each nucleus's |P| there, and the worst-nucleus
+    choice `maximin` (the grid value of largest smallest |P|)."""
+
+    per_nucleus: dict[str, float]
+    maximin: CommonValue
+
+
+def _common_value(result: SweepResult, mags: np.ndarray, i: int, maximises: str) -> CommonValue:
+    return CommonValue(
+        maximises, i, float(result.values[i]), float(mags[i].mean()), float(mags[i].min())
+    )
+
+
+def best_common(result: SweepResult, cycle: int = -1) -> BestCommon:
     """The grid value that maximises the mean |P| over all nuclei after `cycle`, and the
     worst-nucleus choice `maximin` (the grid value that maximises the smallest |P|)."""
     mags = np.abs(result.polarization[:, cycle, :])
     i = int(np.argmax(mags.mean(axis=1)))
     k = int(np.argmax(mags.min(axis=1)))
-    return {
-        "maximises": "mean |P| over the nuclei",
-        "index": i,
-        "value": float(result.values[i]),
-        "mean_polarization": float(mags[i].mean()),
-        "min_polarization": float(mags[i].min()),
-        "per_nucleus": {label: float(mags[i, j]) for j, label in enumerate(result.nuclei)},
-        "maximin": {
-            "maximises": "the smallest |P| of any nucleus",
-            "index": k,
-            "value": float(result.values[k]),
-            "mean_polarization": float(mags[k].mean()),
-            "min_polarization": float(mags[k].min()),
-        },
-    }
+    mean = _common_value(result, mags, i, "mean |P| over the nuclei")
+    return BestCommon(
+        **vars(mean),
+        per_nucleus={label: float(mags[i, j]) for j, label in enumerate(result.nuclei)},
+        maximin=_common_value(result, mags, k, "the smallest |P| of any nucleus"),
+    )
 
 
 def fit_buildup(curve: np.ndarray) -> tuple[float, float]:
@@ -133,7 +160,35 @@ def cycles_to_fraction(rate: float, fraction: float = 0.9) -> int:
 NO_TRANSFER = 1e-6
 
 
-def saturation(result: SweepResult, point: int, fraction: float = 0.9) -> dict[str, object]:
+@dataclass(frozen=True)
+class Buildup(Record):
+    """One nucleus's fitted build-up: |P|sat, the fraction k taken per cycle, the cycles to
+    reach the target fraction of |P|sat (`extrapolated` beyond the run), and whether it moved."""
+
+    saturation: float
+    rate_per_cycle: float
+    cycles: int
+    extrapolated: bool
+    polarized: bool
+
+
+@dataclass(frozen=True)
+class Saturation(Record):
+    """Build-up at one swept value: per nucleus, the slowest polarized nucleus and its cycles
+    (the headline), and the fit to the mean |P| (`mean_*`, which hides a slow nucleus)."""
+
+    value: float
+    fraction: float
+    per_nucleus: dict[str, Buildup]
+    slowest: str | None
+    cycles: int | None
+    extrapolated: bool
+    mean_saturation: float
+    mean_rate_per_cycle: float
+    mean_cycles: int
+
+
+def saturation(result: SweepResult, point: int, fraction: float = 0.9) -> Saturation:
     """Build-up at sweep point `point`: the fitted saturation level of each nucleus and the
     cycles it needs to reach `fraction` of it (``extrapolated`` when beyond the run).
 
@@ -141,32 +196,48 @@ def saturation(result: SweepResult, point: int, fraction: float = 0.9) -> dict[s
     mean |P| hides a slow nucleus behind fast ones, so it is kept only as `mean_*`.
     """
     curves = np.abs(result.polarization[point])  # (cycles, nuclei)
-    out: dict[str, object] = {"value": float(result.values[point]), "fraction": fraction}
-    per: dict[str, dict[str, object]] = {}
+    per: dict[str, Buildup] = {}
     for j, label in enumerate(result.nuclei):
         p_sat, k = fit_buildup(curves[:, j])
         n_cycles = cycles_to_fraction(k, fraction)
-        per[label] = {
-            "saturation": p_sat,
-            "rate_per_cycle": k,
-            "cycles": n_cycles,
-            "extrapolated": n_cycles > result.cycles,
-            "polarized": bool(curves[:, j].max() >= NO_TRANSFER),
-        }
+        per[label] = Buildup(
+            saturation=p_sat,
+            rate_per_cycle=k,
+            cycles=n_cycles,
+            extrapolated=n_cycles > result.cycles,
+            polarized=bool(curves[:, j].max() >= NO_TRANSFER),
+        )
     p_sat, k = fit_buildup(curves.mean(axis=1))
-    polarized = [label for label, p in per.items() if p["polarized"]]
-    slowest = max(polarized, key=lambda label: per[label]["cycles"]) if polarized else None
-    n_cycles = per[slowest]["cycles"] if slowest else None
-    out.update(
+    polarized = [label for label, b in per.items() if b.polarized]
+    slowest = max(polarized, key=lambda label: per[label].cycles) if polarized else None
+    return Saturation(
+        value=float(result.values[point]),
+        fraction=fraction,
         per_nucleus=per,
         slowest=slowest,
-        cycles=n_cycles,
-        extrapolated=bool(slowest and per[slowest]["extrapolated"]),
+        cycles=per[slowest].cycles if slowest else None,
+        extrapolated=bool(slowest and per[slowest].extrapolated),
         mean_saturation=p_sat,
         mean_rate_per_cycle=k,
         mean_cycles=cycles_to_fraction(k, fraction),
     )
-    return out
+
+
+@dataclass(frozen=True)
+class Analysis(Record):
+    """The physics answers of one engine's sweep: peaks, the best common value and (with
+    every cycle from the first) the saturation there."""
+
+    peaks: dict[str, Peak]
+    best_common: BestCommon
+    saturation: Saturation | None
+
+
+def analyse(result: SweepResult) -> Analysis:
+    """Peaks, best common value and, when the build-up is there, saturation at that value."""
+    common = best_common(result)
+    sat = saturation(result, common.index) if result.has_buildup else None
+    return Analysis(peaks(result), common, sat)
 
 
 def max_difference(first: SweepResult, second: SweepResult) -> float:

@@ -28,14 +28,14 @@ import numpy as np
 from qiskit import QuantumCircuit, transpile
 from qiskit.circuit.library import UnitaryGate
 
+from ..errors import ScenarioError
+from ..physics.imperfections import DETUNING_ERROR, DRIVE_ERROR, Imperfections
+from ..physics.model import SpinSystem
+from ..physics.propagation import Propagators, cycle_unitary, polarization_by_cycle
+from ..physics.protocols import CycleSchedule, Protocol, cycle_schedule, perturbed
 from .budget import segment_durations_s
-from .errors import ScenarioError
-from .imperfections import DETUNING_ERROR, DRIVE_ERROR, Imperfections
 from .mapping import MappedProgram, MappingSettings, closes_segment, map_program
-from .model import SpinSystem
 from .processor import Processor
-from .propagation import Propagators, cycle_unitary, polarization_by_cycle
-from .protocols import CycleSchedule, Protocol, cycle_schedule, perturbed
 from .trotter import ProgramPlan, assemble_program, build_circuit, plan_program, plan_unitary
 
 Strategy = Literal["trotter", "cycle-unitary", "auto"]

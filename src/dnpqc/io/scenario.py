@@ -16,16 +16,29 @@ from typing import Any
 
 import numpy as np
 
-from .engines.typical import TypicalSettings
-from .errors import ScenarioError
-from .imperfections import Imperfections
-from .lattice import (
-    dipolar_from_positions,
-    hyperfine_from_position,
-    random_cluster_nm,
-    transverse_azimuth_deg,
+from ..compile.mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED, MappingSettings
+from ..compile.noise import NoiseSettings
+from ..compile.processor import (
+    NATIVE_GATE_SETS,
+    PRESETS,
+    Processor,
+    check_fits,
+    make_processor,
+    processor_for_spec,
 )
-from .limits import (
+from ..compile.program import (
+    MAX_SYNTHESIS_QUBITS,
+    STRATEGIES,
+    CompileJob,
+    CompileSettings,
+    TrotterSettings,
+    Workload,
+    check_synthesis_size,
+    synthesis_cost,
+)
+from ..engines.typical import TypicalSettings
+from ..errors import ScenarioError
+from ..limits import (
     MAX_BLOCK_ELEMENTS,
     MAX_BLOCKS,
     MAX_CYCLES,
@@ -48,29 +61,15 @@ from .limits import (
     MAX_TRAJECTORIES,
     MAX_TYPICAL_STATES,
 )
-from .mapping import DEFAULT_OPTIMIZATION_LEVEL, DEFAULT_SEED, MappingSettings
-from .model import Coupling, Nucleus, SpinSystem, hamiltonian
-from .noise import NoiseSettings
-from .output import has_control
-from .processor import (
-    NATIVE_GATE_SETS,
-    PRESETS,
-    Processor,
-    check_fits,
-    make_processor,
-    processor_for_spec,
+from ..physics.imperfections import Imperfections
+from ..physics.lattice import (
+    dipolar_from_positions,
+    hyperfine_from_position,
+    random_cluster_nm,
+    transverse_azimuth_deg,
 )
-from .program import (
-    MAX_SYNTHESIS_QUBITS,
-    STRATEGIES,
-    CompileJob,
-    CompileSettings,
-    TrotterSettings,
-    Workload,
-    check_synthesis_size,
-    synthesis_cost,
-)
-from .protocols import (
+from ..physics.model import Coupling, Nucleus, SpinSystem, hamiltonian
+from ..physics.protocols import (
     AXIS_PHASES_RAD,
     NAMED_BLOCKS,
     BlockWait,
@@ -83,6 +82,7 @@ from .protocols import (
     cycle_schedule,
     shortest_window_s,
 )
+from .output import has_control
 
 _MISSING = object()
 

@@ -32,8 +32,8 @@ from qiskit.circuit.library import (
 from qiskit.transpiler import CouplingMap, InstructionProperties, QubitProperties, Target
 from qiskit_aer.library import SaveDensityMatrix, SaveProbabilities
 
-from .errors import ScenarioError
-from .limits import MAX_PROCESSOR_QUBITS
+from ..errors import ScenarioError
+from ..limits import MAX_PROCESSOR_QUBITS
 
 #: Native gate sets, named for what they are: (two-qubit gate, single-qubit gates). A set emits
 #: only the gates its name lists (`cz+rz+sx` writes X as two SX; `cz+rz+sx+x` has its own X).

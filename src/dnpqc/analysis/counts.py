@@ -34,9 +34,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ScenarioError
-from .folding import BASELINE, BASELINE_KINDS, PROGRAM
-from .program import Workload
+from ..compile.folding import BASELINE, BASELINE_KINDS, PROGRAM
+from ..compile.program import Workload
+from ..errors import ScenarioError
 
 #: Relative tolerance of a value in the file against the sweep's values.
 VALUE_TOLERANCE = 1e-9

@@ -3,29 +3,40 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .codesign import compare_processors, measured_trotter_error, program_budget
-from .counts import MeasuredCounts, counts_json, sample_counts
-from .engines import NOISY_ENGINES, EngineOptions, engine_name, simulate_program
-from .engines.noisy import BASELINE_ENGINE
-from .engines.shots import readout_confusion, readout_distributions
-from .errors import ScenarioError
-from .folding import BASELINE, program_variants
-from .mitigation import Mitigated, MitigationSettings, mitigate
-from .model import effective_perp_hz, nuclear_frequency_hz
-from .processor import Processor, make_processor, processor_for_spec
-from .program import Program, Workload
-from .protocols import expected_resonances
-from .report import count_of, format_value
-from .results import MEASURED_ENGINE, SweepResult, best_common, peaks, saturation
-from .scenario import Scenario, dnpqc_version, scenario_settings
-from .store import ResultsStore
-from .strategy import Programs, StrategyRow
+from ..analysis.codesign import (
+    ProcessorRow,
+    ProgramBudget,
+    compare_processors,
+    measured_trotter_error,
+    program_budget,
+)
+from ..analysis.counts import MeasuredCounts
+from ..analysis.mitigation import Mitigated, MitigationSettings, mitigate
+from ..analysis.verdicts import (
+    Comparison,
+    best_common_lines,
+    compare_to_exact,
+    run_warnings,
+    saturation_lines,
+)
+from ..compile.processor import Processor, make_processor, processor_for_spec
+from ..compile.program import Program, Workload
+from ..compile.strategy import ApproximationError, Programs, StrategyRow
+from ..engines import NOISY_ENGINES, EngineOptions, engine_name, simulate_program
+from ..engines.noisy import BASELINE_ENGINE
+from ..engines.results import MEASURED_ENGINE, Analysis, SweepResult, analyse
+from ..engines.shots import readout_confusion
+from ..io.scenario import Scenario, dnpqc_version, program_gates, scenario_settings, sweep_work
+from ..io.store import ResultsStore
+from ..limits import check_program_size, check_work
+from ..physics.model import effective_perp_hz, nuclear_frequency_hz
+from ..physics.protocols import expected_resonances
+from ..text import count_of, format_value
 from .sweep import run_engines
-from .verdicts import best_common_lines, compare_to_exact, run_warnings, saturation_lines
 
 #: Another strategy is "cheaper" when it needs at most this fraction of the two-qubit gates per
 #: cycle at an approximation error no larger than max(the chosen one's, CHEAPER_ERROR_FLOOR).
@@ -82,6 +93,27 @@ def simulate(
     return simulate_program(target, engine, engine_options(scenario), on_point=on_point)
 
 
+def default_processor_note(scenario: Scenario, engines) -> str | None:
+    """The line that names the processor of a noisy run without a `[processor]` table."""
+    if "noisy" not in engines or scenario.processor is not None:
+        return None
+    name = make_processor({}).name
+    return (
+        f"note: no [processor] table, so the noisy engine runs on the default processor {name} "
+        "with typical figures; add a [processor] table to choose one"
+    )
+
+
+def check_engines_work(scenario: Scenario, engines, limit: float, what: str) -> int:
+    """The work of `engines` over the sweep, refused beyond `limit`; circuit engines also
+    need a program of bounded size."""
+    if {"trotter", "noisy"} & set(engines):
+        check_program_size(program_gates(scenario))
+    work = sum(sweep_work(scenario, e) for e in engines)
+    check_work(work, limit, what)
+    return work
+
+
 def cheaper_strategies(chosen: StrategyRow, rows: list[StrategyRow]) -> list[StrategyRow]:
     """Rows that cost clearly fewer two-qubit gates than `chosen` at no larger error."""
     ceiling = max(chosen.approximation_error.value, CHEAPER_ERROR_FLOOR)
@@ -101,8 +133,8 @@ class RunOutcome:
     scenario: Scenario
     results: dict[str, SweepResult]
     program: Program
-    budget: dict[str, object] | None = None
-    compare: list[dict[str, object]] | None = None
+    budget: ProgramBudget | None = None
+    compare: list[ProcessorRow] | None = None
     strategies: tuple[StrategyRow, ...] = ()
     measured: Mitigated | None = None
 
@@ -120,17 +152,11 @@ class RunOutcome:
             max(values),
         )
 
-    def analysis(self, engine: str) -> dict[str, object]:
+    def analysis(self, engine: str) -> Analysis:
         """Peaks, best common value and (with every cycle from the first) saturation."""
-        res = self.results[engine]
-        common = best_common(res)
-        return {
-            "peaks": peaks(res),
-            "best_common": common,
-            "saturation": saturation(res, common["index"]) if res.has_buildup else None,
-        }
+        return analyse(self.results[engine])
 
-    def comparison(self, engine: str) -> dict[str, object]:
+    def comparison(self, engine: str) -> Comparison:
         """`engine` against the exact reference (see `verdicts.compare_to_exact`): signed P
         minus the zero-transfer baseline of the same noisy program, edge peaks never found."""
         ref, other = self.analysis(self.reference.engine), self.analysis(engine)
@@ -142,14 +168,13 @@ class RunOutcome:
             self.reference,
             self.results[engine],
             baseline=baseline,
-            best_common=(ref["best_common"]["value"], other["best_common"]["value"]),
+            best_common=(ref.best_common.value, other.best_common.value),
             subtracted=subtracted,
         )
-        sat = other["saturation"]
-        out["saturation"] = sat["mean_saturation"] if sat is not None else None
-        return out
+        sat = other.saturation
+        return replace(out, saturation=sat.mean_saturation if sat is not None else None)
 
-    def comparisons(self) -> list[dict[str, object]]:
+    def comparisons(self) -> list[Comparison]:
         ref = self.reference.engine
         return [
             self.comparison(e)
@@ -157,8 +182,8 @@ class RunOutcome:
             if e not in (ref, BASELINE_ENGINE) and ref == "exact"
         ]
 
-    def trotter_error(self) -> dict[str, object] | None:
-        """{value, method, points} over every point of the run (with exact and trotter)."""
+    def trotter_error(self) -> ApproximationError | None:
+        """The program error over every point of the run (with exact and trotter)."""
         if "exact" in self.results and "trotter" in self.results:
             return measured_trotter_error(self.results["exact"], self.results["trotter"])
         return None
@@ -166,9 +191,9 @@ class RunOutcome:
     def warnings(self) -> list[str]:
         """What a planner must not miss (`verdicts.run_warnings`), plus unfound noisy peaks."""
         error = self.trotter_error()
-        value = error["value"] if error else None
+        value = error.value if error else None
         out = run_warnings(self.scenario.workload(), self.reference, trotter_error=value)
-        out += [c["verdict"] for c in self.comparisons() if not c["all_found"]]
+        out += [c.verdict for c in self.comparisons() if not c.all_found]
         if (
             self.measured is not None
             and "baseline" in self.measured.applied
@@ -260,22 +285,32 @@ class RunOutcome:
             },
             "expected_resonances": self.resonances(),
             "engines": {name: res.to_dict() for name, res in self.results.items()},
-            "analysis": {name: self.analysis(name) for name in self.results},
+            "analysis": {name: self.analysis(name).to_json() for name in self.results},
             "compiler": self.compiler(),
         }
         if self.trotter_error() is not None:
-            out["trotter_error"] = self.trotter_error()
+            out["trotter_error"] = self.trotter_error().to_json()
         if self.comparisons():
-            out["comparison"] = self.comparisons()
+            out["comparison"] = [c.to_json() for c in self.comparisons()]
         if self.budget is not None:
-            out["budget"] = self.budget
-            if self.trotter_error() is not None:
-                out["budget"] = {**self.budget, "trotter_error": self.trotter_error()}
+            out["budget"] = self.budget_json()
         if self.compare:
-            out["compare"] = self.compare
+            out["compare"] = [r.to_json() for r in self.compare]
         if self.measured is not None:
             out["measured"] = self.measured_json()
         out["warnings"] = self.warnings()
+        return out
+
+    def budget_json(self) -> dict[str, object]:
+        """The budget of the program on the scenario's processor, with every strategy's row
+        and the run's Trotter error."""
+        out = {
+            **self.budget.to_json(),
+            "strategy": self.budget.strategy,
+            "strategies": [r.to_json() for r in self.strategies],
+        }
+        if self.trotter_error() is not None:
+            out["trotter_error"] = self.trotter_error().to_json()
         return out
 
     def measured_json(self) -> dict[str, object]:
@@ -316,49 +351,49 @@ class RunOutcome:
             f"{count_of(sc.cycles, 'cycle')} ({res.engine} engine)",
         ]
         expected = self.resonances()
-        for j, (label, peak) in enumerate(ana["peaks"].items()):
+        for j, (label, peak) in enumerate(ana.peaks.items()):
             guide = ", ".join(format_value(par, v) for v in expected[label]) or "-"
             spread = ""
             if res.stderr is not None:  # sampling engines: the standard error at the peak
-                i = int(np.argmin(np.abs(res.values - peak["value"])))
+                i = int(np.argmin(np.abs(res.values - peak.value)))
                 spread = f" ± {res.stderr[i, -1, j]:.3f}"
             lines.append(
-                f"  {label:>6}: peak at {format_value(par, peak['value'])}, "
-                f"|P| = {peak['polarization']:.3f}{spread} (a-priori: {guide})"
+                f"  {label:>6}: peak at {format_value(par, peak.value)}, "
+                f"|P| = {peak.polarization:.3f}{spread} (a-priori: {guide})"
             )
-        lines += best_common_lines(par, ana["best_common"])
-        if ana["saturation"] is not None:
-            lines += saturation_lines(ana["saturation"])
+        lines += best_common_lines(par, ana.best_common)
+        if ana.saturation is not None:
+            lines += saturation_lines(ana.saturation)
         lines.append(f"  program: {self.program.describe()}")
         if self.trotter_error() is not None:
             err = self.trotter_error()
             lines.append(
-                f"  program error (max |P_program - P_exact|, {err['points']} points): "
-                f"{err['value']:.2e}"
+                f"  program error (max |P_program - P_exact|, {err.points} points): {err.value:.2e}"
             )
         for comp in self.comparisons():
-            if comp["engine"] == "trotter":
+            if comp.engine == "trotter":
                 continue
-            lines.append(f"  {comp['verdict']}")
-            for label, p in comp["per_nucleus"].items():
+            lines.append(f"  {comp.verdict}")
+            for label, p in comp.per_nucleus.items():
                 lines.append(
-                    f"  {label:>6}: {comp['engine']} peak {format_value(par, p['peak'])} "
-                    f"(shift {format_value(par, p['shift'])}), contrast x{p['contrast_ratio']:.2f}"
+                    f"  {label:>6}: {comp.engine} peak {format_value(par, p.peak)} "
+                    f"(shift {format_value(par, p.shift)}), contrast x{p.contrast_ratio:.2f}"
                 )
-            best = format_value(par, comp["best_common"])
-            sat = comp["saturation"]
+            best = format_value(par, comp.best_common)
+            sat = comp.saturation
             lines.append(
-                f"  best common {par} ({comp['engine']}): {best}"
+                f"  best common {par} ({comp.engine}): {best}"
                 + (f"; saturation {sat:.3f}" if sat is not None else "")
             )
-            if comp["engine"] == MEASURED_ENGINE and self.measured is not None:
+            if comp.engine == MEASURED_ENGINE and self.measured is not None:
                 lines.append(self.measured_line())
         if self.budget is not None:
-            per, total = self.budget["per_cycle"], self.budget["total"]
+            gates = self.budget.gates
+            per, total = gates.per_cycle, gates.total
             lines.append(
-                f"  on {self.budget['processor']['name']}: {per['two_qubit']:.0f} 2q gates and "
-                f"{per['swaps']:.0f} SWAPs per cycle, {total['duration_s'] * 1e6:.4g} µs in all, "
-                f"success estimate {total['success_estimate']:.3g}"
+                f"  on {gates.processor.name}: {per.two_qubit:.0f} 2q gates and "
+                f"{per.swaps:.0f} SWAPs per cycle, {total.duration_s * 1e6:.4g} µs in all, "
+                f"success estimate {total.success_estimate:.3g}"
             )
         note = self.cheaper_note()
         if note:
@@ -368,49 +403,6 @@ class RunOutcome:
             lines.append(f"  warnings ({len(warnings)}):")
             lines += [f"  ! {w}" for w in warnings]
         return lines
-
-
-def sampled_counts(
-    scenario: Scenario,
-    engine: str,
-    shots: int,
-    *,
-    seed: int = 0,
-    measure_each_cycle: bool = False,
-    baseline: str | None = None,
-    scales: tuple[int, ...] = (),
-    on_point: Callable[[], None] | None = None,
-) -> dict[str, object]:
-    """The counts file (`counts.py` format) that a run of the scenario's programs would give:
-    `shots` per program and value, sampled with `seed` from the readout distributions of the
-    noisy engine (readout error included, its confusion matrix written in the file) or, for
-    `trotter`, of the noiseless program (perfect readout). `baseline`: None, "uncoupled" or
-    "mixed-nv" (`folding.program_variants`); a mixed-NV baseline's counts are those of its
-    2^C programs pooled with equal shots."""
-    programs = scenario_programs(scenario)
-    work = scenario.workload()
-    noisy = engine_name(engine) == "noisy"
-    if scales and not noisy:
-        raise ScenarioError("folded programs (--fold) amplify processor noise: use --engine noisy")
-    program = programs.mapped() if noisy else programs.logical()
-    noise = scenario.noise if noisy else None
-    error = program.processor.error_readout * scenario.noise.scale if noisy else 0.0
-    confusion = readout_confusion(error, work.system.num_nuclei)
-    variants = program_variants(
-        program, scenario.compile_job().mapping, baseline=baseline, scales=scales
-    )
-    rng = np.random.default_rng(seed)
-    sampled = {}
-    for key, variant in variants.items():
-        dists = readout_distributions(
-            variant,
-            noise,
-            measure_each_cycle=measure_each_cycle,
-            mixed_nv=key[0] == BASELINE and baseline == "mixed-nv",
-            on_point=on_point,
-        )
-        sampled[key] = [sample_counts(d, shots, rng, confusion) for d in dists]
-    return counts_json(work, shots, sampled, confusion, baseline)
 
 
 def measured_result(
@@ -464,8 +456,6 @@ def run_scenario(
     if scenario.processor is not None:
         budget = program_budget(programs.mapped(nominal=True))
         rows = tuple(programs.rows())
-        budget["strategy"] = programs.choice().strategy
-        budget["strategies"] = [r.to_json() for r in rows]
         others = [processor_for_spec(s, scenario.processor) for s in scenario.processor.compare]
         if others:
             compare = compare_processors(programs, [scenario.processor, *others])

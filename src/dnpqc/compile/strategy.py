@@ -34,7 +34,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 from qiskit.quantum_info import Operator
 
-from .budget import costliest_budget, gate_budget
+from ..physics.propagation import polarization_by_cycle
+from ..physics.protocols import Evolve
+from .budget import GateBudget, costliest_budget, gate_budget
 from .processor import Processor
 from .program import (
     MAX_SYNTHESIS_QUBITS,
@@ -53,8 +55,6 @@ from .program import (
     synthesize_cycle,
     trotter_plan,
 )
-from .propagation import polarization_by_cycle
-from .protocols import Evolve
 from .trotter import pauli_terms
 
 #: Largest Trotter step count that `auto` tries.
@@ -210,11 +210,11 @@ def probe_cost(
     return budget_cost(gate_budget(program.mapped[0]), work.cycles - cycles)
 
 
-def budget_cost(budget: dict, extra_cycles: int = 0) -> tuple[float, float]:
+def budget_cost(budget: GateBudget, extra_cycles: int = 0) -> tuple[float, float]:
     """(two-qubit gates per cycle, success estimate) of a budget, with `extra_cycles` more."""
-    per_cycle = budget["per_cycle"]
-    success = budget["total"]["success_estimate"] * per_cycle["success_estimate"] ** extra_cycles
-    return float(per_cycle["two_qubit"]), float(success)
+    per_cycle = budget.per_cycle
+    success = budget.total.success_estimate * per_cycle.success_estimate**extra_cycles
+    return float(per_cycle.two_qubit), float(success)
 
 
 def strategy_row(

@@ -32,8 +32,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from qiskit.quantum_info import SparsePauliOp
 
+from ..errors import ScenarioError
 from .constants import larmor_hz
-from .errors import ScenarioError
 
 
 @dataclass(frozen=True)

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import RunError, ScenarioError
+from ..errors import RunError, ScenarioError
 
 STORE_NAME = "points.sqlite"
 

@@ -28,10 +28,10 @@ import numpy as np
 from qiskit.circuit import Parameter, QuantumCircuit
 from qiskit_aer.library import SaveProbabilities
 
-from .expr import Poly
-from .imperfections import DETUNING_ERROR, DRIVE_ERROR
-from .model import SpinSystem, hamiltonian
-from .protocols import CycleSchedule, Evolve, Pulse
+from ..physics.expr import Poly
+from ..physics.imperfections import DETUNING_ERROR, DRIVE_ERROR
+from ..physics.model import SpinSystem, hamiltonian
+from ..physics.protocols import CycleSchedule, Evolve, Pulse
 
 #: A nucleus–nucleus term is weak when |h| ≤ this fraction of the smallest NV–nucleus term.
 WEAK_FRACTION = 0.25

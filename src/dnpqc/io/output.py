@@ -24,7 +24,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import IO
 
-from .errors import RunError
+from ..errors import RunError, ScenarioError
 
 #: Roots of virtual file systems: results never go there (/dev/shm is ordinary memory).
 VIRTUAL_ROOTS = ("/proc", "/sys", "/dev")
@@ -213,3 +213,18 @@ def one_line(text: str) -> str:
 def spreadsheet_cell(text: str) -> str:
     """A CSV text cell that a spreadsheet never reads as a formula (leading = + - @ quoted)."""
     return f"'{text}" if text[:1] in ("=", "+", "-", "@", "\t", "\r") else text
+
+
+def read_json(path: str, option: str) -> object:
+    """A strict JSON file (no NaN or Infinity), or a one-line refusal."""
+
+    def refuse(constant: str) -> None:
+        raise ValueError(f"{constant} is not JSON")
+
+    try:
+        with open(path, encoding="utf-8") as handle:
+            return json.load(handle, parse_constant=refuse)
+    except OSError as exc:
+        raise ScenarioError(f"`{option}`: cannot read {path!r}: {exc.strerror}") from None
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise ScenarioError(f"`{option}`: {path!r} is not valid JSON: {exc}") from None

@@ -12,8 +12,18 @@ import io
 
 import numpy as np
 
+from ..analysis.codesign import (
+    DETECTION_SIGMAS,
+    BudgetReport,
+    ProcessorRow,
+    ScalingTable,
+    ShotPlan,
+    StepsAdvice,
+)
+from ..compile.strategy import StrategyRow
+from ..engines.results import MEASURED_ENGINE, SweepResult
+from ..text import format_value
 from .output import spreadsheet_cell
-from .results import MEASURED_ENGINE, SweepResult
 
 _UNITS = {"_hz": ("kHz", 1e-3), "_s": ("µs", 1e6)}
 
@@ -34,33 +44,12 @@ _SYMBOLS = {
     "interaction_time_s": "T",
 }
 
-#: Units a single value is written in, largest first: (suffix, threshold, unit, scale).
-_VALUE_UNITS = {
-    "_hz": ((1e6, "MHz", 1e-6), (0.0, "kHz", 1e-3)),
-    "_s": ((1.0, "s", 1.0), (1e-3, "ms", 1e3), (0.0, "µs", 1e6)),
-}
-
 
 def axis_label(parameter: str) -> str:
     """Axis label of a swept key, e.g. "Ω/2π (kHz)" for rabi_hz, "τ (µs)" for tau_s."""
     unit, _ = axis_unit(parameter)
     name = _SYMBOLS.get(parameter, parameter)
     return f"{name} ({unit})" if unit else name
-
-
-def format_value(parameter: str, value: float) -> str:
-    """One value of a swept key in a readable unit: kHz or MHz, µs, ms or s."""
-    for suffix, units in _VALUE_UNITS.items():
-        if parameter.endswith(suffix):
-            for threshold, unit, scale in units:
-                if abs(value) >= threshold:
-                    return f"{value * scale:.4g} {unit}"
-    return f"{value:.4g}"
-
-
-def count_of(count: int, noun: str, plural: str | None = None) -> str:
-    """ "1 nucleus", "3 nuclei": a count with its noun in the right number."""
-    return f"{count} {noun if count == 1 else plural or noun + 's'}"
 
 
 def sweep_csv(results: list[SweepResult]) -> str:
@@ -178,14 +167,13 @@ def buildup_figure(
                 ms=3,
                 capsize=2,
                 color=f"C{j}",
-                label=f"{label} {res.engine}"
-                + (f" (|P|sat {fit['saturation']:.2f})" if fit else ""),
+                label=f"{label} {res.engine}" + (f" (|P|sat {fit.saturation:.2f})" if fit else ""),
             )
             if fit is None:
                 continue
             ax.plot(
                 fine,
-                sign * fit["saturation"] * (1 - (1 - fit["rate_per_cycle"]) ** fine),
+                sign * fit.saturation * (1 - (1 - fit.rate_per_cycle) ** fine),
                 color=f"C{j}",
                 lw=0.6,
                 alpha=0.5,
@@ -263,106 +251,115 @@ def _cell(key: str, value: float, pattern: str) -> str:
     return pattern.format(value * 1e6 if key == "duration_s" else value)
 
 
-def budget_lines(data: dict) -> list[str]:
+def budget_lines(plan: BudgetReport) -> list[str]:
     """The terminal view of `dnpqc budget`: one table, plus the optional co-design views."""
-    proc = data["processor"]
-    q = data["qubits"]
+    gates = plan.budget.gates
+    proc, q, layout = gates.processor, gates.qubits, gates.layout
     lines = [
-        f"processor {proc['name']} ({proc['num_qubits']} qubits, {proc['native_gates']}); "
-        f"layout: {data['layout']['method']} (2q gates by candidate: "
-        + ", ".join(f"{k} {v}" for k, v in data["layout"]["two_qubit_by_method"].items())
+        f"processor {proc.name} ({proc.num_qubits} qubits, {proc.native_gates}); "
+        f"layout: {layout.method} (2q gates by candidate: "
+        + ", ".join(f"{k} {v}" for k, v in layout.two_qubit_by_method.items())
         + ")",
-        f"NV on qubit {q['nv']} (after the program: {q['nv_final']}), nuclei on "
-        + ", ".join(map(str, q["nuclei_initial"]))
+        f"NV on qubit {q.nv} (after the program: {q.nv_final}), nuclei on "
+        + ", ".join(map(str, q.nuclei_initial))
         + " (after the program: "
-        + ", ".join(map(str, q["nuclei_final"]))
+        + ", ".join(map(str, q.nuclei_final))
         + ")",
     ]
     rows = [
-        [label] + [_cell(key, data[part][key], pat) for part in ("per_cycle", "total")]
+        [label] + [_cell(key, getattr(part, key), pat) for part in (gates.per_cycle, gates.total)]
         for label, key, pat in _BUDGET_ROWS
     ]
     lines += _table(["", "per cycle", "total"], rows)
-    te = data["trotter_error"]
-    lines.append(f"Trotter error: {te['value']:.3g} ({te['method']}, {te['points']} points)")
-    if "strategies" in data:
-        lines += ["", f"strategy: {data['strategy']} ({data.get('strategy_reason', '')})"]
-        lines += strategy_table(data["strategies"])
-    if "compare" in data:
-        header = [
-            "processor",
-            "layout",
-            "2q/cycle",
-            "SWAPs/cycle",
-            "depth/cycle",
-            "µs/cycle",
-            "success",
-        ]
-        rows = [
-            [
-                r["processor"],
-                r["layout"],
-                f"{r['per_cycle']['two_qubit']:.0f}",
-                f"{r['per_cycle']['swaps']:.0f}",
-                f"{r['per_cycle']['depth']:.0f}",
-                f"{r['per_cycle']['duration_s'] * 1e6:.4g}",
-                f"{r['total']['success_estimate']:.3g}",
-            ]
-            for r in data["compare"]
-        ]
-        lines += ["", *_table(header, rows)]
-    if "steps_advice" in data:
-        adv = data["steps_advice"]
-        rows = [
-            [
-                str(r["steps"]),
-                f"{r['trotter_error']:.3g}",
-                f"{r['two_qubit_per_cycle']:.0f}",
-                f"{r['success_estimate']:.3g}",
-                f"{r['total_error']:.3g}",
-            ]
-            for r in adv["ladder"]
-        ]
-        lines += ["", *_table(["steps", "Trotter err", "2q/cycle", "success", "total err"], rows)]
-        best = adv["smallest"]
-        if best:
-            lines.append(
-                f"fewest steps with Trotter error <= {adv['target_error']:g}: {best['steps']} "
-                f"({best['two_qubit_per_cycle']:.0f} 2q gates per cycle, success "
-                f"{best['success_estimate']:.3g})"
-            )
-        else:
-            lines.append(f"no step count up to the ladder's end reaches {adv['target_error']:g}")
-        lines.append(f"optimum (least Trotter + hardware error): {adv['optimum']['steps']} steps")
-    if "scaling" in data:
-        sc = data["scaling"]
-        header = ["nuclei", *sc["two_qubit_per_cycle"]]
-        rows = [
-            [str(n)] + [f"{sc['two_qubit_per_cycle'][k][i]:.0f}" for k in header[1:]]
-            for i, n in enumerate(sc["nuclei"])
-        ]
-        rows.append(["growth n^k"] + [f"{sc['growth_exponent'][k]:.2f}" for k in header[1:]])
-        rows.append(["+1 nucleus"] + [f"{sc['per_added_nucleus'][k]:.0f}" for k in header[1:]])
-        lines += [
-            "",
-            f"2q gates per cycle ({sc['steps_per_cycle']} steps) vs nuclei:",
-            *_table(header, rows),
-        ]
+    te = plan.trotter_error
+    lines.append(f"Trotter error: {te.value:.3g} ({te.method}, {te.points} points)")
+    lines += ["", f"strategy: {plan.strategy} ({plan.strategy_reason})"]
+    lines += strategy_table(plan.strategies)
+    if plan.compare is not None:
+        lines += ["", *_compare_table(plan.compare)]
+    if plan.steps_advice is not None:
+        lines += ["", *_advice_lines(plan.steps_advice)]
+    if plan.scaling is not None:
+        lines += ["", *_scaling_lines(plan.scaling)]
     return lines
 
 
-def strategy_table(rows: list[dict]) -> list[str]:
+def _compare_table(rows: list[ProcessorRow]) -> list[str]:
+    header = [
+        "processor",
+        "layout",
+        "2q/cycle",
+        "SWAPs/cycle",
+        "depth/cycle",
+        "µs/cycle",
+        "success",
+    ]
+    cells = [
+        [
+            r.processor,
+            r.layout,
+            f"{r.per_cycle.two_qubit:.0f}",
+            f"{r.per_cycle.swaps:.0f}",
+            f"{r.per_cycle.depth:.0f}",
+            f"{r.per_cycle.duration_s * 1e6:.4g}",
+            f"{r.total.success_estimate:.3g}",
+        ]
+        for r in rows
+    ]
+    return _table(header, cells)
+
+
+def _advice_lines(adv: StepsAdvice) -> list[str]:
+    rows = [
+        [
+            str(r.steps),
+            f"{r.trotter_error:.3g}",
+            f"{r.two_qubit_per_cycle:.0f}",
+            f"{r.success_estimate:.3g}",
+            f"{r.total_error:.3g}",
+        ]
+        for r in adv.ladder
+    ]
+    lines = _table(["steps", "Trotter err", "2q/cycle", "success", "total err"], rows)
+    best = adv.smallest
+    if best:
+        lines.append(
+            f"fewest steps with Trotter error <= {adv.target_error:g}: {best.steps} "
+            f"({best.two_qubit_per_cycle:.0f} 2q gates per cycle, success "
+            f"{best.success_estimate:.3g})"
+        )
+    else:
+        lines.append(f"no step count up to the ladder's end reaches {adv.target_error:g}")
+    lines.append(f"optimum (least Trotter + hardware error): {adv.optimum.steps} steps")
+    return lines
+
+
+def _scaling_lines(sc: ScalingTable) -> list[str]:
+    kinds = list(sc.two_qubit_per_cycle)
+    rows = [
+        [str(n)] + [f"{sc.two_qubit_per_cycle[k][i]:.0f}" for k in kinds]
+        for i, n in enumerate(sc.nuclei)
+    ]
+    rows.append(["growth n^k"] + [f"{sc.growth_exponent[k]:.2f}" for k in kinds])
+    rows.append(["+1 nucleus"] + [f"{sc.per_added_nucleus[k]:.0f}" for k in kinds])
+    return [
+        f"2q gates per cycle ({sc.steps_per_cycle} steps) vs nuclei:",
+        *_table(["nuclei", *kinds], rows),
+    ]
+
+
+def strategy_table(rows: list[StrategyRow]) -> list[str]:
     """The strategies side by side: steps, two-qubit gates per cycle, errors, success."""
     header = ["strategy", "steps", "2q/cycle", "approx err", "success", "err+1-S"]
     cells = [
         [
-            r["strategy"],
-            "-" if r["steps"] is None else str(r["steps"]),
-            f"{r['two_qubit_per_cycle']:.0f}",
-            f"{r['approximation_error']:.2g}"
-            + ("" if r["error_method"] == "measured" else " (bound)"),
-            f"{r['success_estimate']:.3g}",
-            f"{r['total_error']:.3g}",
+            r.strategy,
+            "-" if r.steps is None else str(r.steps),
+            f"{r.two_qubit_per_cycle:.0f}",
+            f"{r.approximation_error.value:.2g}"
+            + ("" if r.approximation_error.method == "measured" else " (bound)"),
+            f"{r.success_estimate:.3g}",
+            f"{r.total_error:.3g}",
         ]
         for r in rows
     ]
@@ -370,14 +367,14 @@ def strategy_table(rows: list[dict]) -> list[str]:
 
 
 @_plain_text
-def budget_figure(rows: list[dict]):
+def budget_figure(rows: list[ProcessorRow]):
     """Bars of two-qubit gates and SWAPs per cycle on each processor."""
     plt = _pyplot()
     fig, ax = plt.subplots(figsize=(7, 3.8))
-    names = [r["processor"] for r in rows]
+    names = [r.processor for r in rows]
     x = np.arange(len(rows))
-    ax.bar(x - 0.2, [r["per_cycle"]["two_qubit"] for r in rows], 0.4, label="2q gates")
-    ax.bar(x + 0.2, [r["per_cycle"]["swaps"] for r in rows], 0.4, label="SWAPs")
+    ax.bar(x - 0.2, [r.per_cycle.two_qubit for r in rows], 0.4, label="2q gates")
+    ax.bar(x + 0.2, [r.per_cycle.swaps for r in rows], 0.4, label="SWAPs")
     ax.set_xticks(x, names, rotation=20)
     ax.set_ylabel("per cycle")
     ax.set_title("The program on each processor")
@@ -386,20 +383,20 @@ def budget_figure(rows: list[dict]):
     return fig
 
 
-def shot_lines(plan: dict) -> list[str]:
+def shot_lines(plan: ShotPlan) -> list[str]:
     """The shot plan of `dnpqc budget`: shots, processor time, peaks against the noise."""
     lines = [
-        f"shots for a standard error {plan['target_stderr']:g} on P (noisy engine's P): "
-        f"up to {plan['max_shots_per_value']} per value, {plan['total_shots']} in all; "
-        f"{plan['per_shot_s'] * 1e6:.4g} µs per shot (program + initial reset), "
-        f"{plan['total_time_s']:.3g} s of processor time for the sweep",
+        f"shots for a standard error {plan.target_stderr:g} on P (noisy engine's P): "
+        f"up to {max(plan.shots)} per value, {plan.total_shots} in all; "
+        f"{plan.per_shot_s * 1e6:.4g} µs per shot (program + initial reset), "
+        f"{plan.total_shots * plan.per_shot_s:.3g} s of processor time for the sweep",
         f"  readout inversion multiplies the shots needed by "
-        f"{plan['readout_inversion_shot_factor']:.3g}",
+        f"{plan.readout_inversion_shot_factor:.3g}",
     ]
-    for p in plan["peaks"]:
-        verdict = "detectable" if p["detectable"] else "NOT detectable"
+    for p in plan.peaks:
+        verdict = "detectable" if p.detectable else "NOT detectable"
         lines.append(
-            f"  {p['nucleus']:>6}: at its exact peak, noisy contrast {p['contrast']:.3f} "
-            f"= {p['sigmas']:.3g} standard errors ({verdict} at {plan['detection_sigmas']:g}σ)"
+            f"  {p.nucleus:>6}: at its exact peak, noisy contrast {p.contrast:.3f} "
+            f"= {p.sigmas:.3g} standard errors ({verdict} at {DETECTION_SIGMAS:g}σ)"
         )
     return lines

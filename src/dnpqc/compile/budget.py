@@ -29,40 +29,32 @@ from dataclasses import dataclass
 import networkx as nx
 from qiskit import QuantumCircuit
 
+from ..records import Record
 from .mapping import MappedProgram, split_segments
 from .processor import VIRTUAL_GATES, Processor
 
 
 @dataclass(frozen=True)
-class SegmentCost:
-    """Cost of one segment (preparation, one cycle, or the final readout)."""
+class SegmentCost(Record):
+    """Cost of one segment (preparation, one cycle, or the final readout); the mean over the
+    cycles (`GateBudget.per_cycle`) has fractional counts."""
 
-    one_qubit: int
-    virtual_z: int
-    two_qubit: int
-    swaps: int
-    resets: int
-    measurements: int
-    depth: int
-    two_qubit_depth: int
+    one_qubit: float
+    virtual_z: float
+    two_qubit: float
+    swaps: float
+    resets: float
+    measurements: float
+    depth: float
+    two_qubit_depth: float
     duration_s: float
     idle_s: dict[int, float]
     success_estimate: float
 
-    def to_dict(self) -> dict[str, object]:
-        return {
-            "one_qubit": self.one_qubit,
-            "virtual_z": self.virtual_z,
-            "two_qubit": self.two_qubit,
-            "swaps": self.swaps,
-            "resets": self.resets,
-            "measurements": self.measurements,
-            "depth": self.depth,
-            "two_qubit_depth": self.two_qubit_depth,
-            "duration_s": self.duration_s,
-            "idle_s": {str(q): t for q, t in sorted(self.idle_s.items())},
-            "success_estimate": self.success_estimate,
-        }
+    def to_json(self) -> dict[str, object]:
+        out = super().to_json()
+        out["idle_s"] = {str(q): t for q, t in sorted(self.idle_s.items())}
+        return out
 
 
 class AsapClock:
@@ -186,26 +178,91 @@ def _sum(costs: list[SegmentCost]) -> SegmentCost:
     )
 
 
-def _mean(costs: list[SegmentCost]) -> dict[str, object]:
+def _mean(costs: list[SegmentCost]) -> SegmentCost:
     n = len(costs)
     total = _sum(costs)
-    return {
-        "one_qubit": total.one_qubit / n,
-        "virtual_z": total.virtual_z / n,
-        "two_qubit": total.two_qubit / n,
-        "swaps": total.swaps / n,
-        "resets": total.resets / n,
-        "measurements": total.measurements / n,
-        "depth": total.depth / n,
-        "two_qubit_depth": total.two_qubit_depth / n,
-        "duration_s": total.duration_s / n,
-        "idle_s": {str(q): t / n for q, t in sorted(total.idle_s.items())},
-        "success_estimate": total.success_estimate ** (1 / n),
-    }
+    return SegmentCost(
+        one_qubit=total.one_qubit / n,
+        virtual_z=total.virtual_z / n,
+        two_qubit=total.two_qubit / n,
+        swaps=total.swaps / n,
+        resets=total.resets / n,
+        measurements=total.measurements / n,
+        depth=total.depth / n,
+        two_qubit_depth=total.two_qubit_depth / n,
+        duration_s=total.duration_s / n,
+        idle_s={q: t / n for q, t in total.idle_s.items()},
+        success_estimate=total.success_estimate ** (1 / n),
+    )
 
 
-def gate_budget(mapped: MappedProgram) -> dict[str, object]:
-    """The budget as JSON-ready data: `per_cycle` (mean of the cycles), `cycles`, `total`."""
+@dataclass(frozen=True)
+class ProcessorSummary(Record):
+    """What a budget says of its processor: size, graph, native gates and figures."""
+
+    name: str
+    num_qubits: int
+    edges: int
+    max_degree: int
+    diameter: int
+    native_gates: str
+    time_1q_s: float
+    time_2q_s: float
+    error_1q: float
+    error_2q: float
+    t1_s: list[float]
+    t2_s: list[float]
+
+
+@dataclass(frozen=True)
+class QubitPlacement(Record):
+    """The physical qubits of a mapped program: its region, and the NV's and nuclei's qubits
+    before and after the program (routing moves them)."""
+
+    region: list[int]
+    nv: int
+    nuclei_initial: list[int]
+    nv_final: int
+    nuclei_final: list[int]
+
+
+@dataclass(frozen=True)
+class LayoutChoice(Record):
+    """How the initial layout was chosen, and the two-qubit gates of each candidate method."""
+
+    method: str
+    two_qubit_by_method: dict[str, int]
+
+
+@dataclass(frozen=True)
+class GateBudget(Record):
+    """The budget of a mapped program: the preparation, each cycle and their mean
+    (`per_cycle`), the final readout, and the `total` of all of them."""
+
+    processor: ProcessorSummary
+    qubits: QubitPlacement
+    layout: LayoutChoice
+    preparation: SegmentCost
+    per_cycle: SegmentCost
+    cycles: list[SegmentCost]
+    readout: SegmentCost
+    total: SegmentCost
+
+    def to_json(self) -> dict[str, object]:
+        return {
+            "processor": self.processor.to_json(),
+            "qubits": self.qubits.to_json(),
+            "layout": self.layout.to_json(),
+            "preparation": self.preparation.to_json(),
+            "per_cycle": self.per_cycle.to_json(),
+            "cycles": [c.to_json() for c in self.cycles],
+            "readout": self.readout.to_json(),
+            "total": self.total.to_json(),
+        }
+
+
+def gate_budget(mapped: MappedProgram) -> GateBudget:
+    """The budget of a mapped program: `per_cycle` (mean of the cycles), `cycles`, `total`."""
     proc, circ, region = mapped.processor, mapped.circuit, mapped.region
     segments = split_segments(circ)
     swaps = list(mapped.swaps_per_segment) + [0] * len(segments)
@@ -215,23 +272,22 @@ def gate_budget(mapped: MappedProgram) -> dict[str, object]:
         readout_insts, readout_circ, region, proc, idle_qubits=list(mapped.final[1:])
     )
     preparation, cycles = costs[0], [c for c in costs[1:] if c.duration_s > 0 or c.one_qubit]
-    total = _sum([preparation, *cycles, readout])
-    return {
-        "processor": processor_summary(proc),
-        "qubits": {
-            "region": list(region),
-            "nv": mapped.initial[0],
-            "nuclei_initial": list(mapped.initial[1:]),
-            "nv_final": mapped.final[0],
-            "nuclei_final": list(mapped.final[1:]),
-        },
-        "layout": {"method": mapped.layout_method, "two_qubit_by_method": mapped.candidates},
-        "preparation": preparation.to_dict(),
-        "per_cycle": _mean(cycles),
-        "cycles": [c.to_dict() for c in cycles],
-        "readout": readout.to_dict(),
-        "total": total.to_dict(),
-    }
+    return GateBudget(
+        processor=processor_summary(proc),
+        qubits=QubitPlacement(
+            region=list(region),
+            nv=mapped.initial[0],
+            nuclei_initial=list(mapped.initial[1:]),
+            nv_final=mapped.final[0],
+            nuclei_final=list(mapped.final[1:]),
+        ),
+        layout=LayoutChoice(mapped.layout_method, mapped.candidates),
+        preparation=preparation,
+        per_cycle=_mean(cycles),
+        cycles=cycles,
+        readout=readout,
+        total=_sum([preparation, *cycles, readout]),
+    )
 
 
 def segment_durations_s(mapped: MappedProgram) -> list[float]:
@@ -240,25 +296,25 @@ def segment_durations_s(mapped: MappedProgram) -> list[float]:
     return [segment_cost(seg, circ, region, proc).duration_s for seg in split_segments(circ)]
 
 
-def costliest_budget(mapped: list[MappedProgram]) -> dict[str, object]:
+def costliest_budget(mapped: list[MappedProgram]) -> GateBudget:
     """The budget of the program (of a per-value set) with most two-qubit gates per cycle."""
     budgets = [gate_budget(m) for m in mapped]
-    return max(budgets, key=lambda b: b["per_cycle"]["two_qubit"])
+    return max(budgets, key=lambda b: b.per_cycle.two_qubit)
 
 
-def processor_summary(proc: Processor) -> dict[str, object]:
+def processor_summary(proc: Processor) -> ProcessorSummary:
     graph = proc.graph()
-    return {
-        "name": proc.name,
-        "num_qubits": proc.num_qubits,
-        "edges": graph.number_of_edges(),
-        "max_degree": max(dict(graph.degree).values(), default=0),
-        "diameter": nx.diameter(graph) if graph.number_of_nodes() > 1 else 0,
-        "native_gates": proc.native_gates,
-        "time_1q_s": proc.time_1q_s,
-        "time_2q_s": proc.time_2q_s,
-        "error_1q": proc.error_1q,
-        "error_2q": proc.error_2q,
-        "t1_s": list(proc.t1_s),
-        "t2_s": list(proc.t2_s),
-    }
+    return ProcessorSummary(
+        name=proc.name,
+        num_qubits=proc.num_qubits,
+        edges=graph.number_of_edges(),
+        max_degree=max(dict(graph.degree).values(), default=0),
+        diameter=nx.diameter(graph) if graph.number_of_nodes() > 1 else 0,
+        native_gates=proc.native_gates,
+        time_1q_s=proc.time_1q_s,
+        time_2q_s=proc.time_2q_s,
+        error_1q=proc.error_1q,
+        error_2q=proc.error_2q,
+        t1_s=list(proc.t1_s),
+        t2_s=list(proc.t2_s),
+    )

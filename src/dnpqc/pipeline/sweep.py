@@ -24,12 +24,12 @@ from concurrent.futures.process import BrokenProcessPool
 
 import numpy as np
 
-from .engines import EngineOptions, simulate_program
-from .errors import RunError, ScenarioError
-from .program import Program, Workload
-from .resources import limit_threads, threads_per_worker
-from .results import SweepResult
-from .store import ResultsStore
+from ..compile.program import Program, Workload
+from ..engines import EngineOptions, simulate_program
+from ..engines.results import SweepResult
+from ..errors import RunError, ScenarioError
+from ..io.store import ResultsStore
+from ..resources import limit_threads, threads_per_worker
 
 Target = Program | Workload
 
