@@ -3,7 +3,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test lint bench clean circuits fuzz
+.PHONY: demo test test-slow lint bench clean circuits fuzz
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -17,7 +17,11 @@ demo: $(STAMP)
 	$(BIN)/dnpqc run --out results/demo
 
 test: $(STAMP)
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -m "not slow"
+
+# the end-to-end and robustness runs (demo, kill, fuzz, committed programs); CI runs both
+test-slow: $(STAMP)
+	$(BIN)/python -m pytest -q -m slow
 
 DEMO_SCENARIO := src/dnpqc/scenarios/demo.toml
 CIRCUIT_PROCESSORS := transmon-grid-9 transmon-heavy-hex-3 ion-chain-12

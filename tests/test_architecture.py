@@ -75,3 +75,10 @@ def test_the_top_level_holds_only_the_base_and_the_entry_points():
     assert top == BASE | {"cli", "__init__"}
     folders = {p.name for p in PACKAGE.iterdir() if (p / "__init__.py").is_file()}
     assert folders == set(STAGES) - {"base", "cli"}
+
+
+def test_nothing_below_the_pipeline_imports_the_scenario_module():
+    """The scenario module parses TOML into each stage's settings; the stages never read it."""
+    for module, path in modules():
+        if "io.scenario" in imported(module, path):
+            assert stage_of(module) >= ORDER.index("pipeline"), module

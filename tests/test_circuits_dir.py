@@ -15,6 +15,7 @@ DEMO = ROOT / "src" / "dnpqc" / "scenarios" / "demo.toml"
 PROCESSORS = re.search(r"CIRCUIT_PROCESSORS := (.+)", (ROOT / "Makefile").read_text()).group(1)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("preset", PROCESSORS.split())
 def test_committed_program_is_current(preset):
     path = ROOT / "circuits" / f"demo-{preset}.qasm"
@@ -23,6 +24,7 @@ def test_committed_program_is_current(preset):
     assert path.read_text() == fresh, f"{path.name} is stale: run `make circuits`"
 
 
+@pytest.mark.slow
 def test_committed_program_parses_with_reference_parser():
     # the reference parser takes ~12 s per MB, so one committed file is parsed here; every
     # native gate set is parsed on small programs in test_qasm.py

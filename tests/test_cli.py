@@ -52,6 +52,7 @@ def test_sweep_to_stdout(small, capsys):
     assert data["engine"] == "trotter"
 
 
+@pytest.mark.slow
 def test_demo_runs_with_no_scenario(tmp_path, capsys):
     assert main(["run", "--out", str(tmp_path / "demo"), "--engines", "exact"]) == 0
     assert "scenario 'demo'" in capsys.readouterr().out

@@ -13,6 +13,7 @@ from dnpqc.pipeline.job import scenario_programs
 EXAMPLES = sorted(Path(__file__).parent.parent.joinpath("examples").glob("*.toml"))
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("path", EXAMPLES, ids=[p.stem for p in EXAMPLES])
 def test_example_transfers_inside_its_sweep_with_a_small_trotter_error(path):
     sc = load_scenario(path)

@@ -17,10 +17,14 @@ import tomllib
 from pathlib import Path
 from unittest import mock
 
+import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from dnpqc.cli import main
+
+#: End-to-end robustness runs: `make test-slow` (and CI), not `make test`.
+pytestmark = pytest.mark.slow
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "src" / "dnpqc" / "scenarios" / "demo.toml"

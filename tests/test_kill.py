@@ -13,7 +13,11 @@ import sys
 import time
 
 import openqasm3
+import pytest
 from conftest import TWO_NUCLEI_SWEEP
+
+#: End-to-end robustness runs: `make test-slow` (and CI), not `make test`.
+pytestmark = pytest.mark.slow
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 PNG_END = b"IEND\xaeB`\x82"  # the IEND chunk and its CRC close every PNG (PNG spec, ISO 15948)

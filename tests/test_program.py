@@ -87,6 +87,7 @@ def test_cycle_unitary_covers_imperfection_nodes(three_nuclei):
     assert one.workload.values == (sc.sweep.values[1],) and one.circuits == program.circuits[2:]
 
 
+@pytest.mark.slow
 def test_demo_cycle_unitary_on_the_grid():
     # issue target: <= 800 two-qubit gates per cycle on grid:3x3, noiseless program = exact
     sc = _strategy(_points(demo_scenario(), [8, 16]), "cycle-unitary")
@@ -98,6 +99,7 @@ def test_demo_cycle_unitary_on_the_grid():
     assert max_difference(simulate(sc, "exact"), mapped) < 1e-6
 
 
+@pytest.mark.slow
 def test_demo_weak_terms_cut_the_gates_at_equal_error():
     # issue target: <= 2600 two-qubit gates per cycle, Trotter error within 10 % of 0.0295
     sc = demo_scenario()

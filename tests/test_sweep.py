@@ -43,6 +43,7 @@ def test_process_pool_equals_serial():
         assert np.array_equal(serial[engine].polarization, pooled[engine].polarization)
 
 
+@pytest.mark.slow
 def test_trajectories_do_not_depend_on_the_split():
     text = SMALL.replace("points = 9", "points = 3").replace("steps = 6", "steps = 2") + (
         '[processor]\ntopology = "line:4"\n[noise]\nmethod = "trajectories"\ntrajectories = 20\n'
@@ -54,6 +55,7 @@ def test_trajectories_do_not_depend_on_the_split():
     assert np.array_equal(whole.stderr, split.stderr)
 
 
+@pytest.mark.slow
 def test_dask_local_cluster_equals_serial():
     distributed = pytest.importorskip("distributed")
     sc = parse_scenario(SMALL)
@@ -80,6 +82,7 @@ def test_store_resumes_only_missing_points(tmp_path):
         ResultsStore(tmp_path / STORE_NAME, digest=other.digest, engines=("exact",), shape=shape)
 
 
+@pytest.mark.slow
 def test_cli_keeps_unfinished_runs_and_resumes(tmp_path):
     path = tmp_path / "s.toml"
     path.write_text(SMALL)
@@ -125,6 +128,7 @@ def _rows(db_path) -> int:
         return 0
 
 
+@pytest.mark.slow
 def test_killed_run_resumes_to_the_uninterrupted_numbers(tmp_path):
     # a run is killed (SIGKILL, no clean-up) mid-way, then resumed
     path = tmp_path / "k.toml"
@@ -211,6 +215,7 @@ def test_pool_workers_exit_when_the_run_is_killed():
     assert _session_members(proc.pid) == []
 
 
+@pytest.mark.slow
 def test_ctrl_c_of_a_pooled_run_is_one_line(tmp_path):
     # Ctrl-C in a terminal signals the whole process group: parent and pool workers
     path = tmp_path / "k.toml"
@@ -244,6 +249,7 @@ if __name__ == "__main__":
 """
 
 
+@pytest.mark.slow
 def test_a_scheduler_killed_mid_run_ends_in_one_line(tmp_path):
     # a loopback Dask cluster in a session of its own is SIGKILLed once the run has stored its
     # first points: the run ends with exit code 2, one line, and keeps what finished
