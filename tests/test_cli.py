@@ -26,8 +26,20 @@ def test_run_writes_report_and_summary(small, tmp_path, capsys):
     assert set(report["trotter_error"]) == {"value", "method", "points"}
     assert report["trotter_error"]["value"] < 0.05 and report["trotter_error"]["points"] == 8
     assert report["warnings"] == []
-    peaks = report["analysis"]["exact"]["peaks"]
-    assert set(peaks) == {"C1", "C2"}
+    analysis = report["analysis"]["exact"]
+    assert list(analysis) == ["peaks", "best_common", "saturation"]  # a fixed interface
+    assert set(analysis["peaks"]) == {"C1", "C2"}
+    assert set(analysis["peaks"]["C1"]) == {"value", "polarization"}
+    assert list(analysis["best_common"]) == [
+        "maximises",
+        "index",
+        "value",
+        "mean_polarization",
+        "min_polarization",
+        "per_nucleus",
+        "maximin",
+    ]
+    assert analysis["saturation"]["slowest"] in ("C1", "C2", None)
     lines = (out / "sweep.csv").read_text().splitlines()
     assert lines[0] == "engine,rabi_hz,cycle,nucleus,polarization,stderr"
     assert len(lines) == 1 + 2 * 8 * 3 * 2
@@ -97,16 +109,28 @@ def test_budget_json_and_table(small, tmp_path, capsys):
     ]
     assert main(argv) == 0
     data = json.loads(path.read_text())
-    for key in (
+    # the JSON keys are a fixed interface (scripts read them): every key, in its order
+    assert list(data) == [
         "processor",
         "qubits",
+        "layout",
+        "preparation",
         "per_cycle",
+        "cycles",
+        "readout",
         "total",
+        "program",
+        "strategy",
+        "strategy_reason",
+        "strategies",
+        "approximation_error",
         "trotter_error",
         "compare",
+        "shots",
         "warnings",
-    ):
-        assert key in data
+    ]
+    assert set(data["trotter_error"]) == {"value", "method", "points"}
+    assert set(data["qubits"]) == {"region", "nv", "nuclei_initial", "nv_final", "nuclei_final"}
     for part in ("per_cycle", "total"):
         assert {
             "one_qubit",

@@ -60,6 +60,12 @@ def test_best_common_value_is_questioned():
     exact = _result("exact", [_bump(330e3, 0.4)])
     comp = compare_to_exact(exact, exact, best_common=(330e3, 320e3))
     assert not comp.best_common_found and "best common value off" in comp.verdict
+    # the report's comparison keys (a fixed interface): best_common* only when it was checked
+    keys = ["engine", "baseline", "resolution", "per_nucleus", "all_found"]
+    common = ["best_common", "best_common_shift", "best_common_found"]
+    assert list(comp.to_json()) == [*keys, *common, "verdict", "saturation"]
+    assert list(compare_to_exact(exact, exact).to_json()) == [*keys, "verdict", "saturation"]
+    assert comp.to_json()["best_common_shift"] == pytest.approx(-10e3)
 
 
 def test_zero_transfer_baseline_is_zero_without_noise_and_the_artefact_with_it():
