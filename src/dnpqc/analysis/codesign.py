@@ -152,14 +152,6 @@ class ProcessorRow(Record):
     per_cycle: SegmentCost
     total: SegmentCost
 
-    def to_json(self) -> dict[str, object]:
-        return {
-            "processor": self.processor,
-            "layout": self.layout,
-            "per_cycle": self.per_cycle.to_json(),
-            "total": self.total.to_json(),
-        }
-
 
 def compare_processors(programs: Programs, processors: list[Processor]) -> list[ProcessorRow]:
     """The same job on several processors: per-cycle and total figures side by side."""

@@ -248,18 +248,6 @@ class GateBudget(Record):
     readout: SegmentCost
     total: SegmentCost
 
-    def to_json(self) -> dict[str, object]:
-        return {
-            "processor": self.processor.to_json(),
-            "qubits": self.qubits.to_json(),
-            "layout": self.layout.to_json(),
-            "preparation": self.preparation.to_json(),
-            "per_cycle": self.per_cycle.to_json(),
-            "cycles": [c.to_json() for c in self.cycles],
-            "readout": self.readout.to_json(),
-            "total": self.total.to_json(),
-        }
-
 
 def gate_budget(mapped: MappedProgram) -> GateBudget:
     """The budget of a mapped program: `per_cycle` (mean of the cycles), `cycles`, `total`."""

@@ -28,6 +28,7 @@ from __future__ import annotations
 import itertools
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
+from contextlib import nullcontext
 from dataclasses import dataclass
 
 import numpy as np
@@ -113,15 +114,18 @@ def chebyshev_propagate(h: ScaledHamiltonian, states: np.ndarray, time_s: float)
     current = states.astype(h.matrix.dtype)  # T_0
     previous = np.zeros_like(current)  # T_-1 = 0, so that the first step gives T_1 = H'·T_0
     out = coefficients[0] * states
-    with ThreadPoolExecutor(len(h.blocks)) as pool:
+    with ThreadPoolExecutor(len(h.blocks)) if len(h.blocks) > 1 else nullcontext() as pool:
         for index, c in enumerate(coefficients[1:]):
             scale = 1.0 if index == 0 else 2.0
-            steps = [
-                pool.submit(_recurrence_step, b, current, previous, out, scale, c)
-                for b in h.blocks
-            ]
-            for done in steps:
-                done.result()
+            if pool is None:  # one block: no hand-off to a thread at every step
+                _recurrence_step(h.blocks[0], current, previous, out, scale, c)
+            else:
+                steps = [
+                    pool.submit(_recurrence_step, b, current, previous, out, scale, c)
+                    for b in h.blocks
+                ]
+                for done in steps:
+                    done.result()
             current, previous = previous, current
     return np.exp(-1j * tau * h.centre_hz) * out
 
