@@ -35,6 +35,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 from qiskit import QuantumCircuit
+from qiskit.circuit import Instruction
 from qiskit.quantum_info import average_gate_fidelity
 from qiskit_aer.noise import (
     NoiseModel,
@@ -119,21 +120,24 @@ def gate_error(
     return relax if dep is None else relax.compose(dep)
 
 
-def noise_model(processor: Processor, region: tuple[int, ...], scale: float = 1.0) -> NoiseModel:
-    """NoiseModel for a circuit on `region` (circuit qubit i = physical region[i])."""
-    model = NoiseModel(basis_gates=[*processor.one_qubit_gates, processor.two_qubit_gate, "reset"])
+def instruction_errors(
+    processor: Processor, region: tuple[int, ...], scale: float = 1.0
+) -> dict[tuple[str, tuple[int, ...]], QuantumError]:
+    """The error channel after each (instruction, circuit qubits) of a circuit on `region`
+    (circuit qubit i = physical region[i]): gates (`gate_error`) and resets."""
+    errors: dict[tuple[str, tuple[int, ...]], QuantumError] = {}
     local = {p: i for i, p in enumerate(region)}
     for name in processor.one_qubit_gates:
         for phys, i in local.items():
             error = gate_error(processor, name, [phys], scale)
             if error is not None:
-                model.add_quantum_error(error, name, [i])
+                errors[name, (i,)] = error
     for a, b in processor.edges:
         if a in local and b in local:
             for pa, pb in ((a, b), (b, a)):
                 error = gate_error(processor, processor.two_qubit_gate, [pa, pb], scale)
                 if error is not None:
-                    model.add_quantum_error(error, processor.two_qubit_gate, [local[pa], local[pb]])
+                    errors[processor.two_qubit_gate, (local[pa], local[pb])] = error
     p1 = min(1.0, processor.error_reset * scale)
     for phys, i in local.items():
         error = reset_error(1.0 - p1, p1) if p1 > 0 else None
@@ -141,9 +145,19 @@ def noise_model(processor: Processor, region: tuple[int, ...], scale: float = 1.
         if relax is not None:
             error = relax if error is None else error.compose(relax)
         if error is not None:
-            model.add_quantum_error(error, "reset", [i])
-        e = min(0.5, processor.error_readout * scale)
-        if e > 0:
+            errors["reset", (i,)] = error
+    return errors
+
+
+def noise_model(processor: Processor, region: tuple[int, ...], scale: float = 1.0) -> NoiseModel:
+    """NoiseModel for a circuit on `region` (circuit qubit i = physical region[i]): the
+    `instruction_errors` and a symmetric readout error on every qubit."""
+    model = NoiseModel(basis_gates=[*processor.one_qubit_gates, processor.two_qubit_gate, "reset"])
+    for (name, qubits), error in instruction_errors(processor, region, scale).items():
+        model.add_quantum_error(error, name, list(qubits))
+    e = min(0.5, processor.error_readout * scale)
+    if e > 0:
+        for i in range(len(region)):
             model.add_readout_error(ReadoutError([[1 - e, e], [e, 1 - e]]), [i])
     return model
 
@@ -213,11 +227,15 @@ def with_idle_relaxation(
     out = circuit.copy_empty_like()
     clock = AsapClock(range(circuit.num_qubits))
 
+    made: dict[tuple[int, float], Instruction | None] = {}  # one channel per (qubit, gap)
+
     def idle(gaps: dict[int, float]) -> None:
         for q, t in gaps.items():
-            error = relaxation(processor, region[q], t, scale)
-            if error is not None:
-                out.append(error.to_instruction(), [q])
+            if (q, t) not in made:
+                error = relaxation(processor, region[q], t, scale)
+                made[q, t] = None if error is None else error.to_instruction()
+            if made[q, t] is not None:
+                out.append(made[q, t], [q], copy=False)
 
     for inst in circuit.data:
         qubits = [circuit.find_bit(q).index for q in inst.qubits]

@@ -22,6 +22,7 @@ from ..physics.imperfections import DETUNING_ERROR, DRIVE_ERROR, average_nodes
 from ..physics.model import z_signs
 from ..resources import density_matrix_bytes, process_threads, require_memory
 from .results import SweepResult
+from .superop import SuperopSimulator
 
 #: Experiments per Aer run. Aer converts a circuit once per run (~15-30 µs per gate) and then
 #: binds each experiment in C++, so large batches amortise the conversion; progress per batch.
@@ -72,7 +73,7 @@ def run_rows(
     *,
     cycles: int,
     num_nuclei: int,
-    simulator: AerSimulator,
+    simulator: AerSimulator | SuperopSimulator,
     shots: int = 1,
     reader: Reader = nuclear_polarizations,
     on_batch: Callable[[int], None] | None = None,
@@ -96,6 +97,8 @@ def run_rows(
 
 
 def _run_batch(circuits, columns, start, stop, simulator, shots) -> list[dict]:
+    if not isinstance(simulator, AerSimulator):  # superop.SuperopSimulator, one shot
+        return simulator.run_batch(circuits, columns, start, stop)
     if len(circuits) > 1:
         result = simulator.run(list(circuits[start:stop]), shots=shots).result()
         return [result.data(i) for i in range(stop - start)]
@@ -156,7 +159,7 @@ def simulate_circuits(
     program: Program,
     circuits: Sequence[QuantumCircuit],
     engine: str,
-    simulator: AerSimulator,
+    simulator: AerSimulator | SuperopSimulator,
     *,
     shots: int = 1,
     reader: Reader = nuclear_polarizations,

@@ -22,6 +22,7 @@ from qiskit_aer.noise import NoiseModel
 
 from ..compile.noise import (
     NoiseSettings,
+    instruction_errors,
     noise_model,
     readout_factor,
     with_idle_relaxation,
@@ -40,6 +41,7 @@ from .circuit import (
     simulate_circuits,
 )
 from .results import SweepResult
+from .superop import SuperopSimulator, supports
 
 
 def choose_method(noise: NoiseSettings, num_qubits: int) -> str:
@@ -98,6 +100,17 @@ def noisy_circuits(
     return circuits, noise_model(processor, first.region, scale)
 
 
+def density_matrix_runner(
+    program: Program, circuits: list[QuantumCircuit], model: NoiseModel, noise: NoiseSettings
+) -> AerSimulator | SuperopSimulator:
+    """The batched superoperator simulator when it runs `circuits` (`superop.supports`), else
+    Aer's density-matrix method with `model`; both apply the same channels."""
+    if supports(circuits):
+        first = program.mapped[0]
+        return SuperopSimulator(instruction_errors(first.processor, first.region, noise.scale))
+    return density_matrix_simulator(noise_model=model)
+
+
 def simulate_noisy(
     program: Program,
     noise: NoiseSettings | None = None,
@@ -117,7 +130,7 @@ def simulate_noisy(
     first = program.mapped[0]
     factor = readout_factor(first.processor, noise.scale)
     if choose_method(noise, first.circuit.num_qubits) == "density_matrix":
-        sim = density_matrix_simulator(noise_model=model)
+        sim = density_matrix_runner(program, circuits, model, noise)
 
         def read(data: dict, cycles: int, num_nuclei: int) -> np.ndarray:
             return factor * nuclear_polarizations(data, cycles, num_nuclei)

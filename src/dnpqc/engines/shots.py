@@ -30,7 +30,7 @@ from .circuit import (
     run_rows,
     saved_probabilities,
 )
-from .noisy import choose_method, noisy_circuits
+from .noisy import choose_method, density_matrix_runner, noisy_circuits
 
 
 def readout_distributions(
@@ -59,11 +59,12 @@ def readout_distributions(
                 'too large for it (set [noise] method = "density_matrix" to see the memory it '
                 "needs)"
             )
-        simulator = density_matrix_simulator(noise_model=model)
     if mixed_nv:
         circuits = [without_transfer(c) for c in circuits]
     if measure_each_cycle:
         circuits = [with_readout_dephasing(c) for c in circuits]
+    if noise is not None:
+        simulator = density_matrix_runner(program, circuits, model, noise)
     registers = range(1, cycles + 1) if measure_each_cycle else (cycles,)
 
     def read(data: dict, _cycles: int, _n: int) -> np.ndarray:
