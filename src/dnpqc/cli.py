@@ -77,7 +77,7 @@ def _parser() -> argparse.ArgumentParser:
         "--workers",
         type=int,
         default=None,
-        help="local worker processes (default 1: measured fastest here, see README Performance)",
+        help="local worker processes (default 1: as fast as 2 on the demo; README Performance)",
     )
     run.add_argument(
         "--scheduler",

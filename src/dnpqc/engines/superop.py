@@ -6,13 +6,15 @@ row-major vectorised density matrix, vec(ρ)[i·d + j] = ρ[i, j], so that vec(K
 next two-qubit one on their qubit, and consecutive two-qubit ones on the same pair are multiplied
 together, so each fused block is one 16×16 (or 4×4) matrix. The rows of a sweep batch (points ×
 imperfection nodes) run side by side: the state is stored as (4^q, rows) real and imaginary
-parts, so each block updates every row with one vectorised multiply-add per element, and a block
-that does not depend on the swept parameters is stored once for all rows.
+parts. A block that does not depend on the swept parameters is stored once and applied to all
+element groups of all rows as one real BLAS gemm; a block that does is a loop vectorised over the
+rows. The rows are split over the process's threads (`process_threads`), each with a one-thread
+BLAS.
 
 The noise is that of a qiskit-aer `NoiseModel` without readout errors: for each (gate, qubits)
 an error channel applied after the gate (`noise.instruction_errors`). Supported instructions:
 gates with a matrix, `reset`, noise-channel instructions, `barrier`, `delay` (no-op; idle noise
-is explicit), `save_probabilities`. A circuit with anything else is `Unsupported`.
+is explicit), `save_probabilities` (`supports`); `fuse` refuses anything else (`Unsupported`).
 """
 
 from __future__ import annotations
