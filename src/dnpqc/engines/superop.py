@@ -37,12 +37,11 @@ from ..resources import process_threads
 ErrorTable = Mapping[tuple[str, tuple[int, ...]], QuantumError]
 
 SKIPPED = frozenset({"barrier", "delay"})
-CHANNELS = frozenset({"reset", "quantum_channel", "save_probabilities"})
+CHANNELS = frozenset({"reset", "quantum_channel"})
 
 #: Largest circuit run here: the batch state is 16·4^q bytes per row, and from about 10 qubits
 #: Aer's multithreaded update of one large density matrix is the better use of the cores.
 MAX_QUBITS = 9
-RESET_KRAUS = (np.array([[1, 0], [0, 0]], complex), np.array([[0, 1], [0, 0]], complex))
 
 
 class Unsupported(ValueError):
@@ -66,6 +65,12 @@ def supports(circuits: Sequence[QuantumCircuit]) -> bool:
 def kraus_superop(kraus: Sequence[np.ndarray]) -> np.ndarray:
     """Row-major superoperator Σ K ⊗ K* of a channel given by Kraus operators."""
     return sum(np.kron(k, k.conj()) for k in kraus)
+
+
+#: ρ → |0><0| Tr ρ: Kraus operators |0><0| and |0><1|
+RESET_SUPEROP = kraus_superop(
+    (np.array([[1, 0], [0, 0]], complex), np.array([[0, 1], [0, 0]], complex))
+)[None]
 
 
 def channel_superop(error: QuantumError) -> np.ndarray:
@@ -125,10 +130,8 @@ class _Save:
     qubits: tuple[int, ...]
 
 
-def _matrix(op, binds: Sequence[dict]) -> np.ndarray:
-    """(rows or 1, d, d) matrix of a gate, bound to each row when it has parameters."""
-    if not any(isinstance(p, ParameterExpression) for p in op.params):
-        return op.to_matrix()[None]
+def _bound_matrices(op: Gate, binds: Sequence[dict]) -> np.ndarray:
+    """(rows, d, d) matrices of a parameterised gate, bound to each row."""
     mats = []
     for bind in binds:
         values = [
@@ -141,18 +144,49 @@ def _matrix(op, binds: Sequence[dict]) -> np.ndarray:
     return np.array(mats)
 
 
-def _gate_superop(op: Gate, binds: Sequence[dict], cache: dict) -> np.ndarray:
-    """(rows or 1, L, L) superoperator U ⊗ U* of a gate; fixed gates are cached by value."""
-    fixed = not any(isinstance(p, ParameterExpression) for p in op.params)
-    key = (op.name, tuple(np.asarray(p).tobytes() for p in op.params)) if fixed else None
-    if key in cache:
-        return cache[key]
-    u = _matrix(op, binds)
+def _unitary_superop(u: np.ndarray) -> np.ndarray:
+    """(rows, d², d²) superoperators U ⊗ U* of (rows, d, d) unitaries."""
     d2 = u.shape[1] ** 2
-    superop = np.einsum("rik,rjl->rijkl", u, u.conj()).reshape(len(u), d2, d2)
-    if fixed:
-        cache[key] = superop
-    return superop
+    return np.einsum("rik,rjl->rijkl", u, u.conj()).reshape(len(u), d2, d2)
+
+
+class Converter:
+    """Superoperators of a circuit's instructions, each distinct one converted once for all
+    the batches of a run (qiskit's `SuperOp` conversion is the slow part of fusing)."""
+
+    def __init__(self, errors: ErrorTable) -> None:
+        self.errors = errors
+        self._after: dict[tuple[str, tuple[int, ...]], np.ndarray | None] = {}
+        self._channels: dict[tuple, np.ndarray] = {}
+        self._keys: dict[int, tuple] = {}  # id(instruction) -> (instruction, error_key)
+        self._gates: dict[tuple, np.ndarray] = {}
+
+    def channel(self, op) -> np.ndarray:
+        """(1, L, L) superoperator of a noise-channel instruction; equal channels share it."""
+        if id(op) not in self._keys:  # one instruction appended many times: keyed once
+            self._keys[id(op)] = (op, error_key(op._quantum_error))
+        key = self._keys[id(op)][1]
+        if key not in self._channels:
+            self._channels[key] = channel_superop(op._quantum_error)[None]
+        return self._channels[key]
+
+    def gate(self, op: Gate, binds: Sequence[dict]) -> np.ndarray:
+        """(rows or 1, L, L) superoperator U ⊗ U* of a gate, bound to each row when it has
+        parameters; fixed gates are converted once per value."""
+        if any(isinstance(p, ParameterExpression) for p in op.params):
+            return _unitary_superop(_bound_matrices(op, binds))
+        key = (op.name, tuple(np.asarray(p).tobytes() for p in op.params))
+        if key not in self._gates:
+            self._gates[key] = _unitary_superop(op.to_matrix()[None])
+        return self._gates[key]
+
+    def after(self, name: str, qubits: tuple[int, ...]) -> np.ndarray | None:
+        """(1, L, L) superoperator of the processor error after `name` on `qubits`, if any."""
+        key = (name, qubits)
+        if key not in self._after:
+            error = self.errors.get(key)
+            self._after[key] = None if error is None else channel_superop(error)[None]
+        return self._after[key]
 
 
 class _Fuser:
@@ -208,13 +242,9 @@ class _Fuser:
         self.last.clear()
 
 
-def fuse(circuit: QuantumCircuit, errors: ErrorTable, binds: Sequence[dict]) -> list:
+def fuse(circuit: QuantumCircuit, convert: Converter, binds: Sequence[dict]) -> list:
     """The blocks and saves of `circuit` bound to each of `binds` (name → value per row)."""
     fuser = _Fuser()
-    cache: dict[tuple[str, tuple[int, ...]], np.ndarray | None] = {}
-    channels: dict[tuple, np.ndarray] = {}
-    seen: dict[int, tuple] = {}
-    gates: dict[tuple, np.ndarray] = {}
     for inst in circuit.data:
         op = inst.operation
         name = op.name
@@ -225,24 +255,16 @@ def fuse(circuit: QuantumCircuit, errors: ErrorTable, binds: Sequence[dict]) -> 
             fuser.save(op.label, qubits)
             continue
         if name == "reset":
-            superop = kraus_superop(RESET_KRAUS)[None]
+            superop = RESET_SUPEROP
         elif name == "quantum_channel":
-            if id(op) not in seen:  # one instruction appended many times: keyed once
-                seen[id(op)] = error_key(op._quantum_error)
-            key = seen[id(op)]
-            if key not in channels:
-                channels[key] = channel_superop(op._quantum_error)[None]
-            superop = channels[key]
+            superop = convert.channel(op)
         elif isinstance(op, Gate):
-            superop = _gate_superop(op, binds, gates)
+            superop = convert.gate(op, binds)
         else:
             raise Unsupported(f"instruction {name!r} is not supported by the superop engine")
-        key = (name, qubits)
-        if key not in cache:
-            error = errors.get(key)
-            cache[key] = None if error is None else channel_superop(error)[None]
-        if cache[key] is not None:
-            superop = cache[key] @ superop
+        error = convert.after(name, qubits)
+        if error is not None:
+            superop = error @ superop
         if len(qubits) == 1:
             fuser.one(qubits[0], superop)
         elif len(qubits) == 2:
@@ -430,10 +452,14 @@ def marginal(diagonal: np.ndarray, num_qubits: int, qubits: tuple[int, ...]) -> 
     return t.reshape(2 ** len(qubits), -1).T
 
 
-def simulate_rows(circuit: QuantumCircuit, errors: ErrorTable, binds: Sequence[dict]) -> list:
-    """The data of each row (one per bind): {save label: probabilities}, starting from |0…0>."""
+def simulate_rows(
+    circuit: QuantumCircuit, errors: ErrorTable | Converter, binds: Sequence[dict]
+) -> list:
+    """The data of each row (one per bind): {save label: probabilities}, starting from |0…0>.
+    `errors`: the processor's error table, or a `Converter` kept across batches."""
     q, rows = circuit.num_qubits, len(binds)
-    items = fuse(circuit, errors, binds)
+    convert = errors if isinstance(errors, Converter) else Converter(errors)
+    items = fuse(circuit, convert, binds)
     packed = _pack(items, rows)
     saves = [item for item in items if isinstance(item, _Save)]
     re = np.zeros((4**q, rows))
@@ -454,13 +480,14 @@ def simulate_rows(circuit: QuantumCircuit, errors: ErrorTable, binds: Sequence[d
     return data
 
 
-@dataclass(frozen=True)
 class SuperopSimulator:
-    """The runner `circuit.run_rows` uses for a noisy program this module `supports`."""
+    """The runner `circuit.run_rows` uses for a noisy program this module `supports`; one per
+    run, so each distinct instruction is converted once for all its batches."""
 
-    errors: ErrorTable
+    def __init__(self, errors: ErrorTable) -> None:
+        self.convert = Converter(errors)
 
     def run_batch(self, circuits, columns: dict[str, np.ndarray], start: int, stop: int):
         """The data of rows start..stop of the one circuit, bound to `columns`."""
         binds = [{name: float(col[i]) for name, col in columns.items()} for i in range(start, stop)]
-        return simulate_rows(circuits[0], self.errors, binds)
+        return simulate_rows(circuits[0], self.convert, binds)
